@@ -144,7 +144,7 @@ def _basis_products(bit: str) -> np.ndarray:
     from .models import PAULI
 
     idx = int(bit)
-    return np.einsum("aij,bjk->aik", PAULI, PAULI)[:, :, idx, idx]
+    return np.einsum("aij,bjk->abik", PAULI, PAULI)[:, :, idx, idx]
 
 
 def _frobenius_weight(arrays: Sequence[np.ndarray]) -> float:

@@ -1,0 +1,241 @@
+"""evolve.py: the TEBD engine against dense exact evolution, closed forms and Bessel functions."""
+
+import numpy as np
+import pytest
+import scipy.special
+
+import mpo_fronts as mf
+from mpo_fronts.errors import InputError
+from mpo_fronts.evolve import OperatorTEBD, block_layers, step_layers, step_plan
+from mpo_fronts.exact import free_fermion_otoc
+
+BIG = 4096  # bond dimension never reached at these sizes: no truncation beyond numerical zeros
+
+
+def max_dev(a, b):
+    return max(np.abs(a.otoc(v) - b.otoc(v)).max() for v in "XYZ")
+
+
+# ---------------------------------------------------------------------------------------- exactness
+CASES = [
+    ("xxz", 8, "Z", 0), ("xxz", 8, "Z", 4), ("xxz", 8, "X", 0), ("xxz", 8, "X", 3), ("xxz", 10, "Z", 0),
+    ("mfi", 10, "Z", 0), ("mfi", 10, "X", 5), ("mfi", 9, "X", 0), ("mfi", 9, "Z", 4),
+]
+
+
+def make_chain(kind, L):
+    if kind == "xxz":
+        return mf.xxz_chain(L, delta=1.0, W=1.5, seed=L)
+    return mf.mixed_field_ising_chain(L)
+
+
+@pytest.mark.parametrize("kind, L, w, site", CASES)
+def test_engine_matches_dense_exact(kind, L, w, site):
+    # reference: dense exact evolution with scipy/numpy eigendecomposition (exact.py)
+    chain = make_chain(kind, L)
+    ts = [0.3, 0.8]
+    res = mf.evolve_otoc(chain, w=w, site=site, times=ts, chi=BIG, dt=0.02, order=4)
+    ref = mf.exact_otoc(chain, w=w, site=site, times=ts)
+    assert max_dev(res, ref) <= 1e-6
+    assert np.all(res.discarded_weight < 1e-20)
+
+
+def trotter_error(chain, order, dt, t=1.0):
+    res = mf.evolve_otoc(chain, w="Z", site=0, times=[t], chi=BIG, dt=dt, order=order)
+    ref = mf.exact_otoc(chain, w="Z", site=0, times=[t])
+    return max_dev(res, ref)
+
+
+@pytest.mark.parametrize("order, dt, expected", [(2, 0.1, 4.0), (4, 0.2, 16.0)])
+def test_measured_trotter_order(order, dt, expected):
+    # error ratio when dt halves: 2^order for an order-`order` schedule (common practice)
+    chain = mf.mixed_field_ising_chain(6)
+    ratio = trotter_error(chain, order, dt) / trotter_error(chain, order, dt / 2)
+    assert expected * 0.85 < ratio < expected * 1.15, ratio
+
+
+def test_schedules_are_consistent():
+    for order in (2, 4):
+        layers = step_layers(order)
+        for parity in (0, 1):
+            assert abs(sum(c for p, c in layers if p == parity) - 1.0) < 1e-14
+        merged = block_layers(order, 5, 0.1)
+        assert all(merged[i][0] != merged[i + 1][0] for i in range(len(merged) - 1))
+        assert abs(sum(d for p, d in merged if p == 0) - 0.5) < 1e-13
+    # output times are hit exactly, steps never exceed dt
+    plan = step_plan([0.0, 0.25, 1.0, 3.7], dt=0.1, chunk=7)
+    assert max(tau for _, n, tau in plan if n) <= 0.1 + 1e-15
+    for k, t in enumerate([0.0, 0.25, 1.0, 3.7]):
+        assert abs(sum(n * tau for kk, n, tau in plan if kk <= k) - t) < 1e-12
+    assert all(n <= 7 for _, n, _ in plan)
+
+
+# ---------------------------------------------------------------------------------------- closed forms
+def test_free_fermions_large_chain_trotterized_closed_form():
+    # Trotterized free-fermion closed form (physics.md [derived]): isolates truncation error at L = 64
+    L, dt, order = 64, 0.05, 2
+    chain = mf.xxz_chain(L, delta=0.0, W=1.0, seed=64)
+    ts = [0.5, 1.0, 2.0, 4.0]
+    res = mf.evolve_otoc(chain, w="Z", site=20, times=ts, chi=32, dt=dt, order=order)
+    ref = free_fermion_otoc(chain, site=20, times=ts, dt=dt, order=order)
+    assert np.abs(res.otoc("Z") - ref).max() <= 1e-9
+    assert res.max_bond.max() < 32  # the free-fermion operator has a small exact bond dimension
+
+
+def test_clean_xx_chain_bessel_values():
+    # infinite XX chain: |G_0r(t)|^2 = J_r(Jt)^2 (physics.md [derived]); C_ZZ = 4 |G|^2 (1 - |G|^2)
+    L, i = 40, 20
+    chain = mf.xxz_chain(L, delta=0.0)
+    ts = [0.5, 1.0, 4.0, 5.0]
+    res = mf.evolve_otoc(chain, w="Z", site=i, times=ts, chi=32, dt=0.05, order=4)  # Trotter error ~4e-9
+    C = res.otoc("Z")
+    for k, t in enumerate(ts):
+        for r in range(0, 11):
+            g2 = scipy.special.jv(r, t) ** 2
+            assert abs(C[k, i + r] - 4 * g2 * (1 - g2)) < 1e-8
+    # check values listed in physics.md ([derived] there)
+    listed = {(1, 0.5): 0.2209960772, (3, 1.0): 0.0015303134, (5, 4.0): 0.0685699637, (10, 5.0): 8.6177599e-06}
+    for (r, t), val in listed.items():
+        assert abs(C[ts.index(t), i + r] - val) < 1e-8 * max(1.0, val * 1e3)
+
+
+def test_early_time_growth_exponent():
+    # C(r, t) ~ t^(2|r - i|) at early times (common practice: lowest order of the BCH series); in the
+    # Heisenberg chain every order of t moves the operator by one site
+    chain = mf.xxz_chain(8, W=1.0, seed=1)
+    i = 3
+    t1, t2 = 0.01, 0.02
+    res = mf.evolve_otoc(chain, w="Z", site=i, times=[t1, t2], chi=BIG, dt=1e-4, order=2)
+    C = res.otoc("X")
+    for r in (0, 1, 2, 4, 5, 6, 7):
+        slope = np.log(C[1, r] / C[0, r]) / np.log(t2 / t1)
+        d = abs(r - i)
+        assert abs(slope - 2 * d) < (0.01 if d <= 3 else 0.1), (r, slope)
+
+
+# ---------------------------------------------------------------------------------------- truncation
+def test_discarded_weight_equals_norm_loss_and_error_shrinks_with_chi():
+    chain = mf.mixed_field_ising_chain(10)
+    ts = [1.0, 2.5]
+    ref = mf.exact_otoc(chain, w="Z", site=5, times=ts)
+    errors = []
+    for chi in (4, 8, 16, 48):
+        eng = OperatorTEBD(chain, w="Z", site=5, chi=chi, dt=0.05, order=2)
+        for _ in eng.run(ts):
+            pass
+        assert eng.max_bond <= chi
+        # orthogonal gates conserve the Frobenius weight: the ledger is the norm loss
+        assert abs(eng.discarded_weight - (1.0 - eng.norm2())) < 1e-12
+        res = mf.evolve_otoc(chain, w="Z", site=5, times=ts, chi=chi, dt=0.05, order=2)
+        if chi <= 8:
+            assert res.discarded_weight[-1] > 1e-6
+        assert np.all(np.diff(res.discarded_weight) >= 0)
+        errors.append(max_dev(res, ref))
+    assert errors[0] > errors[1] > errors[2] > errors[3]
+    assert errors[-1] < 1e-2
+
+
+def test_cutoff_truncates_by_discarded_weight():
+    chain = mf.mixed_field_ising_chain(8)
+    r_full = mf.evolve_otoc(chain, w="Z", site=4, times=[1.5], chi=BIG, dt=0.05)
+    r_cut = mf.evolve_otoc(chain, w="Z", site=4, times=[1.5], chi=BIG, dt=0.05, cutoff=1e-10)
+    assert r_cut.max_bond[-1] < r_full.max_bond[-1] / 2
+    eps = r_cut.discarded_weight[-1]
+    assert 0 < eps < 1e-10 * 30 * 7  # at most the cutoff per truncation (30 steps x 7 bonds x 2 layers / 2)
+    # an operator error of weight eps moves C by O(sqrt(eps)) at most
+    assert max_dev(r_cut, r_full) < 2 * np.sqrt(eps)
+
+
+def test_checkpoint_restore_reproduces_uninterrupted_run():
+    chain = mf.xxz_chain(12, W=2.0, seed=1)
+    ts = [0.5, 1.0, 1.5, 2.0]
+    full = OperatorTEBD(chain, w="Z", site=0, chi=16, dt=0.05, chunk=5)
+    for _ in full.run(ts):
+        pass
+    saved = {}
+    part = OperatorTEBD(chain, w="Z", site=0, chi=16, dt=0.05, chunk=5)
+    for k, e in part.run(ts, hook=lambda e: saved.setdefault(e.blocks_done, e.state_dict()) if e.blocks_done == 3 else None):
+        if k == 1:
+            break
+    again = OperatorTEBD(chain, w="Z", site=0, chi=16, dt=0.05, chunk=5)
+    again.load_state_dict(saved[3])  # mid-way between outputs 0 and 1
+    rest = {k: e for k, e in again.run(ts)}
+    assert min(rest) == 1  # continues after the blocks done; does not repeat output 0
+    assert abs(again.discarded_weight - full.discarded_weight) < 1e-15
+    assert all(np.array_equal(a, b) for a, b in zip(again.arrays, full.arrays))
+
+
+def test_product_state_average_over_basis_equals_infinite_temperature():
+    # averaging C_s over all 2^L basis states gives the infinite-temperature OTOC (physics.md [trade])
+    L = 4
+    chain = mf.xxz_chain(L, W=1.0, seed=3)
+    ts = [0.7, 1.4]
+    inf = mf.evolve_otoc(chain, w="X", site=1, times=ts, chi=BIG, dt=0.05)
+    acc = {v: 0.0 for v in "XYZ"}
+    for n in range(2**L):
+        bits = format(n, f"0{L}b")
+        r = mf.evolve_otoc(chain, w="X", site=1, times=ts, chi=BIG, dt=0.05, state=bits)
+        for v in acc:
+            acc[v] = acc[v] + r.otoc(v) / 2**L
+    for v in "XYZ":
+        assert np.abs(acc[v] - inf.otoc(v)).max() < 1e-12
+
+
+def test_product_state_otoc_matches_dense_exact():
+    chain = mf.xxz_chain(8, W=2.0, seed=8)
+    ts = [0.4, 0.9]
+    for bits, w, site in [("01101001", "Z", 3), ("00001111", "X", 0)]:
+        res = mf.evolve_otoc(chain, w=w, site=site, times=ts, chi=BIG, dt=0.02, order=4, state=bits)
+        ref = mf.exact_otoc(chain, w=w, site=site, times=ts, state=bits)
+        assert max_dev(res, ref) < 1e-6
+
+
+def test_right_weight_front_profile_matches_exact():
+    chain = mf.mixed_field_ising_chain(9)
+    res = mf.evolve_otoc(chain, w="Z", site=0, times=[0.5, 1.0], chi=BIG, dt=0.02, order=4)
+    ref = mf.exact_otoc(chain, w="Z", site=0, times=[0.5, 1.0])
+    assert np.abs(res.right_weight - ref.right_weight).max() < 1e-6
+    assert np.allclose(res.right_weight.sum(axis=1), 1.0)
+
+
+def test_quimb_mps_boundary():
+    eng = OperatorTEBD(mf.xxz_chain(6), w="Z", site=2, chi=8, dt=0.1)
+    for _ in eng.run([0.5]):
+        pass
+    mps = eng.to_mps()
+    assert mps.L == 6 and mps.phys_dim() == 4
+    assert abs(mps.H @ mps - eng.norm2()) < 1e-12
+
+
+# ---------------------------------------------------------------------------------------- bad input
+@pytest.mark.parametrize(
+    "kwargs, word",
+    [
+        ({"w": "Q"}, "w"),
+        ({"site": 12}, "site"),
+        ({"site": -1}, "site"),
+        ({"chi": 0}, "chi"),
+        ({"chi": 2.5}, "chi"),
+        ({"dt": -0.1}, "dt"),
+        ({"dt": float("nan")}, "dt"),
+        ({"order": 3}, "order"),
+        ({"cutoff": -1e-3}, "cutoff"),
+        ({"times": [1.0, 0.5]}, "increasing"),
+        ({"times": [-1.0]}, "times"),
+        ({"times": [np.inf]}, "finite"),
+        ({"times": []}, "times"),
+        ({"state": "0101"}, "state"),
+        ({"state": "01010101012x"}, "state"),
+    ],
+)
+def test_bad_engine_inputs_raise_clear_errors(kwargs, word):
+    chain = mf.xxz_chain(12)
+    args = dict(w="Z", site=0, times=[1.0], chi=8, dt=0.1)
+    args.update(kwargs)
+    with pytest.raises(InputError, match=word):
+        mf.evolve_otoc(chain, **args)
+
+
+def test_chain_must_be_a_chain():
+    with pytest.raises(InputError, match="chain"):
+        mf.evolve_otoc("xxz", times=[1.0])
