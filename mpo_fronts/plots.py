@@ -1,0 +1,393 @@
+"""Figures of a loaded OTOC ensemble (matplotlib, one function per figure).
+
+Each ``plot_*`` function takes a loaded ensemble (see :func:`mpo_fronts.load`) and returns a
+:class:`matplotlib.figure.Figure` built without pyplot, so nothing touches the user's interactive backend;
+:func:`write_figures` saves them as PNG and PDF through the Agg renderer. Colour maps are perceptually uniform
+and stay ordered in greyscale (cividis for C, viridis for densities); lines also differ by style and marker,
+so every figure reads in black and white.
+
+Figures (names for ``only``):
+
+* ``heatmap``: ensemble-mean C(r, t) on a log-time axis, threshold contours of the mean and median curves,
+  untrusted points hatched;
+* ``distribution``: per-realization C at one site as a density over time, with mean, median and Sarle's
+  bimodality coefficient;
+* ``light_cone``: t*(d) of the ensemble curve and of every realization, with the ballistic and logarithmic
+  fits and their bands, on linear and logarithmic time axes;
+* ``convergence``: the largest |dC| between successive bond dimensions, at, ahead of and behind the front
+  (needs convergence data, see ``fronts converge``);
+* ``front``: right-weight profiles at several times and the front width against time on log axes.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any, Callable, Iterable, Sequence
+
+import numpy as np
+
+from . import analysis as an
+from .errors import InputError, require
+
+__all__ = ["FIGURES", "plot_heatmap", "plot_distribution", "plot_light_cone", "plot_convergence", "plot_front",
+           "write_figures"]
+
+_FORMATS = ("png", "pdf", "svg")
+_C_LABEL = "C(r, t) = 1 - Re Tr[W(t) V_r W(t) V_r] / 2^L"
+_T_LABEL = "time t (1/J)"
+_D_LABEL = "distance d = |r - i| (sites)"
+
+
+def _mpl():
+    require("matplotlib", "plot")
+    from matplotlib.figure import Figure
+
+    return Figure
+
+
+def _figure(width: float, height: float, ncols: int = 1, nrows: int = 1, **kw):
+    Figure = _mpl()
+    fig = Figure(figsize=(width, height), layout="constrained")
+    axes = fig.subplots(nrows, ncols, squeeze=False, **kw)
+    return fig, axes
+
+
+def _log_edges(t: np.ndarray) -> np.ndarray:
+    """Cell edges of positive times on a log axis (geometric midpoints)."""
+    if t.size == 1:
+        return np.array([t[0] / 1.5, t[0] * 1.5])
+    mid = np.sqrt(t[1:] * t[:-1])
+    return np.concatenate([[t[0] ** 2 / mid[0]], mid, [t[-1] ** 2 / mid[-1]]])
+
+
+def _positive_times(t: np.ndarray) -> np.ndarray:
+    """Indices of times > 0 (t = 0 has no place on a log axis and is left out of such plots)."""
+    keep = np.flatnonzero(t > 0)
+    if keep.size == 0:
+        raise InputError("the ensemble has no output time t > 0; a log-time figure needs some")
+    return keep
+
+
+def _title(ens, probe: str | None) -> str:
+    desc = getattr(ens, "description", {}) or {}
+    model = desc.get("kind") or desc.get("model") or ""
+    R = len(ens.realizations)
+    w = getattr(ens, "w", "W")
+    v = f", V = {probe}" if probe else ""
+    return f"{model} L = {ens.L}, W = {w} at site {ens.site}{v}, {R} realization(s)".strip()
+
+
+def _colors(n: int, cmap: str = "viridis", lo: float = 0.1, hi: float = 0.8):
+    import matplotlib
+
+    cm = matplotlib.colormaps[cmap]
+    return [cm(x) for x in np.linspace(lo, hi, max(n, 1))]
+
+
+# ------------------------------------------------------------------------------------------ figures
+def plot_heatmap(ens, threshold: float = 0.5, probe: str = "Z", *, levels: Sequence[float] | None = None,
+                 use_trust: bool = True, max_discarded: float = an.DEFAULT_MAX_DISCARDED):
+    """Ensemble-mean C(r, t) as a heat map on a log-time axis.
+
+    Solid contour: mean curve at ``threshold``; dashed: median curve at ``threshold``; dotted: mean curve at
+    the extra ``levels``. Hatched cells are untrusted (see :func:`mpo_fronts.analysis.trust_mask`).
+    """
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    theta = an._check_threshold(threshold)
+    C = an._probe_otoc(ens, probe)
+    t = np.asarray(ens.times, dtype=float)
+    keep = _positive_times(t)
+    t = t[keep]
+    mean = C.mean(axis=0)[keep]
+    median = np.median(C, axis=0)[keep]
+    mask, info = an.trust_mask(ens, use_trust, max_discarded)
+    L = C.shape[2]
+    untrusted = (~np.broadcast_to(mask, C.shape).all(axis=0))[keep] if mask is not None else np.zeros(mean.shape, bool)
+    fig, axes = _figure(6.4, 4.8)
+    ax = axes[0, 0]
+    xe = np.arange(L + 1) - 0.5
+    te = _log_edges(t)
+    vmax = max(float(np.nanmax(mean)), 1.1 * theta)
+    mesh = ax.pcolormesh(xe, te, mean, cmap="cividis", vmin=0.0, vmax=vmax, shading="flat", rasterized=True)
+    cb = fig.colorbar(mesh, ax=ax)
+    cb.set_label(f"ensemble mean of C(r, t), V = {probe.upper()}")
+    r = np.arange(L)
+    handles = []
+    for curve, style, name in ((mean, "-", "mean"), (median, "--", "median")):
+        if np.nanmax(curve) >= theta and np.nanmin(curve) < theta and t.size > 1:
+            ax.contour(r, t, curve, levels=[theta], colors="k", linewidths=2.6, linestyles=style)
+            ax.contour(r, t, curve, levels=[theta], colors="w", linewidths=1.2, linestyles=style)
+        handles.append(Line2D([], [], color="k", ls=style, lw=1.8, label=f"{name} C = {theta:g}"))
+    for lev in levels or ():
+        if np.nanmax(mean) >= lev > np.nanmin(mean) and t.size > 1:
+            ax.contour(r, t, mean, levels=[lev], colors="0.9", linewidths=1.0, linestyles=":")
+            handles.append(Line2D([], [], color="0.5", ls=":", label=f"mean C = {lev:g}"))
+    if untrusted.any():
+        from matplotlib.collections import PatchCollection
+        from matplotlib.patches import Rectangle
+
+        rects = []
+        for j in range(L):  # one rectangle per run of untrusted times in each column
+            col = np.concatenate([[False], untrusted[:, j], [False]]).astype(int)
+            starts, stops = np.flatnonzero(np.diff(col) == 1), np.flatnonzero(np.diff(col) == -1)
+            rects += [Rectangle((xe[j], te[a]), 1.0, te[b] - te[a]) for a, b in zip(starts, stops)]
+        ax.add_collection(PatchCollection(rects, facecolor="none", edgecolor="0.85", linewidth=0.0,
+                                          hatch="///", zorder=3))
+        handles.append(Patch(facecolor="none", edgecolor="0.3", hatch="///", label="untrusted"))
+    ax.axvline(ens.site, color="0.85", lw=0.8, ls=(0, (1, 2)))
+    ax.set_yscale("log")
+    ax.set_ylim(te[0], te[-1])
+    ax.set_xlim(xe[0], xe[-1])
+    ax.set_xlabel(f"site r (W at site i = {ens.site})")
+    ax.set_ylabel(_T_LABEL)
+    ax.set_title(_title(ens, probe.upper()), fontsize=9)
+    ax.legend(handles=handles, loc="upper left", fontsize=7, framealpha=0.85)
+    fig.suptitle(f"{_C_LABEL}; trust: {info['source']}", fontsize=8)
+    return fig
+
+
+def plot_distribution(ens, r: int | None = None, probe: str = "Z", *, bins: int = 40):
+    """Distribution of C(r, t) over realizations at one site r, as a density over time.
+
+    Top: histogram density (viridis) with the mean (solid) and median (dashed). Bottom: Sarle's bimodality
+    coefficient with its uniform-distribution value 5/9 (dotted).
+    """
+    dist = an.ensemble_distribution(ens, r=r, probe=probe, bins=bins)
+    t = dist["times"]
+    keep = _positive_times(t)
+    t = t[keep]
+    fig, axes = _figure(6.4, 5.2, nrows=2, sharex=True, gridspec_kw={"height_ratios": [3, 1]})
+    ax, bx = axes[0, 0], axes[1, 0]
+    te = _log_edges(t)
+    dens = dist["density"][keep]
+    from matplotlib.colors import PowerNorm
+
+    mesh = ax.pcolormesh(te, dist["edges"], dens.T, cmap="viridis", shading="flat", rasterized=True,
+                         norm=PowerNorm(0.5, vmin=0.0, vmax=max(float(dens.max()), 1e-12)))
+    cb = fig.colorbar(mesh, ax=[ax, bx])
+    cb.set_label("density over realizations (per unit C, square-root scale)")
+    ax.plot(t, dist["mean"][keep], color="w", lw=2.4)
+    ax.plot(t, dist["mean"][keep], color="k", lw=1.2, label="mean")
+    ax.plot(t, dist["median"][keep], color="w", lw=2.4, ls="--")
+    ax.plot(t, dist["median"][keep], color="k", lw=1.2, ls="--", label="median")
+    ax.set_xscale("log")
+    ax.set_ylim(dist["edges"][0], dist["edges"][-1])
+    ax.set_ylabel(f"C(r, t) at r = {dist['r']} (d = {dist['d']})")
+    ax.legend(loc="upper left", fontsize=7, framealpha=0.85)
+    ax.set_title(_title(ens, probe.upper()), fontsize=9)
+    bx.plot(t, dist["bimodality"][keep], color="k", marker=".", ms=3, lw=1.0)
+    bx.axhline(5 / 9, color="0.4", ls=":", lw=1.0, label="5/9 (uniform)")
+    bx.set_ylim(0, 1.05)
+    bx.set_xlabel(_T_LABEL)
+    bx.set_ylabel("Sarle's b")
+    bx.legend(loc="upper left", fontsize=7)
+    return fig
+
+
+def plot_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, lc: dict | None = None, **opts):
+    """Crossing times t*(d; theta) with the ballistic and logarithmic fits and their confidence bands.
+
+    Left: linear time axis (a ballistic cone is a straight line); right: log time axis (a logarithmic cone is
+    a straight line). Filled circles: the ensemble curve, with bootstrap standard deviations; open circles:
+    crossings excluded as untrusted; small grey points: single realizations.
+    """
+    if lc is None:
+        lc = an.ensemble_light_cone(ens, threshold, probe, **opts)
+    d = lc["d"]
+    cross, real = lc["crossings"], lc["realization_crossings"]
+    fig, axes = _figure(8.8, 4.0, ncols=2)
+    colors = _colors(2, lo=0.2, hi=0.65)
+    for j, ax in enumerate(axes[0]):
+        R = real.tstar.shape[0]
+        jitter = np.linspace(-0.15, 0.15, R) if R > 1 else np.zeros(1)
+        ax.plot((d[None, :] + jitter[:, None]).ravel(), real.tstar.ravel(), ".", color="0.6", ms=2.5,
+                label="single realizations", zorder=1)
+        ok = cross.status == an.CROSSED
+        err = np.where(np.isfinite(lc["tstar_boot_std"]), lc["tstar_boot_std"], 0.0)
+        ax.errorbar(d[ok], cross.tstar[ok], yerr=err[ok], fmt="o", color="k", ms=4, capsize=2,
+                    label=f"ensemble {lc['curve']}", zorder=3)
+        bad = cross.status == an.UNTRUSTED
+        if np.any(bad & np.isfinite(cross.tstar_any)):
+            ax.plot(d[bad], cross.tstar_any[bad], "o", mfc="none", mec="k", ms=5, label="untrusted (excluded)",
+                    zorder=3)
+        for (law, style), c in zip((("ballistic", "-"), ("log", "--")), colors):
+            f = lc["fits"][law]
+            band = f["band"]
+            if band["d"].size and np.any(np.isfinite(band["fit"])):
+                if np.any(np.isfinite(band["low"])):
+                    ax.fill_between(band["d"], band["low"], band["high"], color=c, alpha=0.25, lw=0,
+                                    hatch="...." if law == "log" else None)
+                val = f["value"]
+                name = (f"{f['law']}, v_B = {val:.3g}" if law == "ballistic" else f"{f['law']}, xi = {val:.3g}")
+                ax.plot(band["d"], band["fit"], ls=style, color=c, lw=1.6, label=name, zorder=2)
+        ax.set_xlabel(_D_LABEL)
+        if j == 0:
+            ax.set_ylabel("crossing time t* (1/J)")
+        else:
+            ax.set_yscale("log")
+            ax.set_ylabel("crossing time t* (1/J), log scale")
+    axes[0, 0].legend(fontsize=7, loc="upper left", framealpha=0.85)
+    rr = lc["fits"]["ballistic"]["r_range"]
+    fig.suptitle(f"{_title(ens, lc['probe'])}; threshold C = {lc['threshold']:g}, fit range d = {rr[0]}..{rr[1]}, "
+                 f"{int(round(100 * lc['fits']['ballistic']['ci']))}% bands", fontsize=8)
+    return fig
+
+
+def plot_convergence(ens, threshold: float = 0.5, probe: str = "Z"):
+    """Largest |dC| between successive bond dimensions at, ahead of and behind the threshold contour.
+
+    The contour is that of the ensemble-mean C of the main run; the points compared are those of the side of
+    W used for the light cone. The dotted line is the tolerance of the trust mask.
+    """
+    conv = getattr(ens, "convergence", None)
+    if conv is None:
+        raise InputError("this ensemble has no bond-dimension convergence data; run 'fronts converge' first "
+                         "(or leave the 'convergence' figure out)")
+    theta = an._check_threshold(threshold)
+    C = an._probe_otoc(ens, probe)
+    chis = list(conv["chis"])
+    dC = np.asarray(conv["max_dC"], dtype=float)
+    cols, _, side = an.one_side(C.shape[2], int(ens.site))
+    regions = an.front_sites(C.mean(axis=0)[:, cols], theta)
+    fig, axes = _figure(5.6, 4.2)
+    ax = axes[0, 0]
+    x = chis[1:]
+    kinds = (("front", "at the front", "-", "o"), ("behind", "behind the front", "--", "s"),
+             ("ahead", "ahead of the front", ":", "^"))
+    for (name, label, style, marker), c in zip(kinds, _colors(3, lo=0.1, hi=0.7)):
+        m = regions[name]
+        if not m.any():
+            continue
+        y = [float(np.max(dC[k][:, cols][m])) for k in range(dC.shape[0])]
+        ax.plot(x, np.maximum(y, 1e-16), ls=style, marker=marker, color=c, label=f"{label} (C = {theta:g} contour)")
+    ax.axhline(float(conv["tol"]), color="0.3", ls=(0, (1, 2)), lw=1.0, label=f"tolerance {float(conv['tol']):g}")
+    ax.set_xscale("log", base=2)
+    ax.set_yscale("log")
+    ax.set_xticks(x)
+    ax.set_xticklabels([f"{a}->{b}" for a, b in zip(chis[:-1], chis[1:])])
+    ax.set_xlabel("bond dimension chi (successive pairs)")
+    ax.set_ylabel(f"largest |C_chi - C_chi'| over realizations, V = {probe.upper()}")
+    ax.set_title(_title(ens, probe.upper()) + f", {side} side", fontsize=9)
+    ax.legend(fontsize=7)
+    return fig
+
+
+def plot_front(ens, n_profiles: int = 6, **opts):
+    """Right-weight front profiles at several times, and the front width against time on log axes."""
+    fr = an.ensemble_front(ens, **opts)
+    t = fr["times"]
+    keep = _positive_times(t)
+    # The output grid is usually log-spaced, so equally spaced indices are equally spaced in ln t.
+    idx = np.unique(np.round(np.linspace(keep[0], keep[-1], min(n_profiles, keep.size))).astype(int))
+    fig, axes = _figure(8.8, 3.8, ncols=2)
+    ax, bx = axes[0]
+    markers = "osD^vP*X"
+    for j, (k, c) in enumerate(zip(idx, _colors(idx.size, "cividis", 0.0, 0.85))):
+        ax.plot(fr["x"], fr["profile"][k], color=c, marker=markers[j % len(markers)], ms=3, lw=1.2,
+                label=f"t = {t[k]:.3g}")
+    ax.set_xlabel("r - i (sites to the right of W)")
+    ax.set_ylabel("right weight rho(r, t) (ensemble mean)")
+    ax.legend(fontsize=7, title="time (1/J)", title_fontsize=7)
+    wexp = fr["width_exponent"]
+    tw, ww = t[keep], fr["width"][keep]
+    pos = ww > 0
+    bx.plot(tw[pos], ww[pos], "o", color="k", ms=3, label="width of the mean profile")
+    if np.isfinite(wexp["value"]):
+        tt = wexp["times"]
+        bx.plot(tt, wexp["prefactor"] * tt ** wexp["value"], color=_colors(1, lo=0.55)[0], lw=2.0,
+                label=(f"w ~ t^beta, beta = {wexp['value']:.3g} [{wexp['ci_low']:.3g}, {wexp['ci_high']:.3g}]"))
+    bx.set_xscale("log")
+    bx.set_yscale("log")
+    bx.set_xlabel(_T_LABEL)
+    bx.set_ylabel("front width w(t) (sites)")
+    bx.legend(fontsize=7)
+    fig.suptitle(_title(ens, None) + "; right end of W(t)", fontsize=8)
+    return fig
+
+
+FIGURES: dict[str, Callable[..., Any]] = {
+    "heatmap": plot_heatmap,
+    "distribution": plot_distribution,
+    "light_cone": plot_light_cone,
+    "convergence": plot_convergence,
+    "front": plot_front,
+}
+
+
+def _check_only(only) -> list[str]:
+    if only is None:
+        return list(FIGURES)
+    names = [only] if isinstance(only, str) else list(only)
+    bad = [n for n in names if n not in FIGURES]
+    if bad or not names:
+        raise InputError(f"only must name figures among {', '.join(FIGURES)}, got {only!r}")
+    return names
+
+
+def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshold: float = 0.5, probe: str = "Z",
+                  formats: Sequence[str] = ("png", "pdf"), *, r: int | None = None, dpi: int = 150,
+                  n_boot: int = 500, seed: int = 0) -> list[Path]:
+    """Write the figures of a loaded ensemble to ``outdir``, one file per figure and format.
+
+    Parameters
+    ----------
+    ens : loaded ensemble (see :func:`mpo_fronts.load`)
+    outdir : path
+        Created if missing; files are named ``<figure>.<format>``.
+    only : str or iterable of str, optional
+        Figure names (``heatmap``, ``distribution``, ``light_cone``, ``convergence``, ``front``); default
+        all. Without convergence data the ``convergence`` figure is skipped unless asked for by name, which is
+        an error.
+    threshold : float
+        theta on the [0, 2] scale of C, for contours and crossing times.
+    probe : {'X', 'Y', 'Z'}
+    formats : sequence of {'png', 'pdf', 'svg'}
+    r : int, optional
+        Probe site of the distribution figure (default halfway along the longer side of W).
+
+    Returns
+    -------
+    list of Path
+        The files written.
+    """
+    names = _check_only(only)
+    fmts = [formats] if isinstance(formats, str) else list(formats)
+    if not fmts or any(f not in _FORMATS for f in fmts):
+        raise InputError(f"formats must be a non-empty list among {', '.join(_FORMATS)}, got {formats!r}")
+    an._check_threshold(threshold)
+    an._probe_otoc(ens, probe)
+    if getattr(ens, "convergence", None) is None:
+        if only is not None and "convergence" in names:
+            raise InputError("only names 'convergence', but this ensemble has no bond-dimension convergence "
+                             "data; run 'fronts converge' first or choose other figures")
+        names = [n for n in names if n != "convergence"]
+    require("matplotlib", "plot")
+    out = Path(outdir)
+    out.mkdir(parents=True, exist_ok=True)
+    lc = None
+    written: list[Path] = []
+    for name in names:
+        if name == "heatmap":
+            fig = plot_heatmap(ens, threshold, probe)
+        elif name == "distribution":
+            fig = plot_distribution(ens, r=r, probe=probe)
+        elif name == "light_cone":
+            lc = lc or an.ensemble_light_cone(ens, threshold, probe, n_boot=n_boot, seed=seed)
+            fig = plot_light_cone(ens, threshold, probe, lc=lc)
+        elif name == "convergence":
+            fig = plot_convergence(ens, threshold, probe)
+        else:
+            fig = plot_front(ens, n_boot=n_boot, seed=seed)
+        for fmt in fmts:
+            path = out / f"{name}.{fmt}"
+            fig.savefig(path, dpi=dpi, metadata=_metadata(fmt))
+            written.append(path)
+    return written
+
+
+def _metadata(fmt: str) -> dict[str, str]:
+    from . import __version__
+
+    return {("Software" if fmt == "png" else "Creator"): f"mpo_fronts {__version__}"}
