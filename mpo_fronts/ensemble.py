@@ -1,0 +1,662 @@
+"""Realizations, seeds, executors (serial, local processes, Dask), shards, checks and convergence studies.
+
+One realization is computed by :func:`compute_realization`: claim it in the run directory, rebuild its chain
+from the description (:meth:`mpo_fronts.config.RunDescription.realization`; the seed scheme makes it
+independent of where and when it runs), resume from its checkpoint if there is one, evolve W(t) with
+:class:`mpo_fronts.evolve.OperatorTEBD`, read out every requested time, write the result atomically, release the
+claim. Every executor runs exactly this function, with one BLAS thread per process, so serial runs, local
+processes, Dask workers and shards give identical arrays. The run directory, not the scheduler, is the record
+of what is done: rerunning computes only what is missing.
+
+Executors
+---------
+* serial (``workers=1``): in this process.
+* local processes (``workers=N``): a ``spawn`` process pool; ``OMP_NUM_THREADS`` and friends are set to 1
+  before the children start, and ``threadpoolctl`` limits BLAS to one thread in each child.
+* Dask (``dask="local:N"`` for a ``distributed.LocalCluster`` of N single-threaded worker processes, or
+  ``dask="tcp://host:port"`` for a running scheduler). Tasks are submitted with ``pure=False`` (never
+  deduplicated) and ``retries``; a task whose worker died is rescheduled by Dask and takes over the claim of
+  its dead predecessor (same run id), continuing from the last checkpoint. Workers must see the run directory
+  at the same path (a shared file system).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import math
+import os
+import sys
+import time
+import uuid
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable, Sequence
+
+import numpy as np
+
+from .config import Realization, RunDescription, parse_description
+from .errors import FrontsError, InputError, UserError, require
+from .store import ClaimInfo, RunDirectory
+
+__all__ = ["run_ensemble", "compute_realization", "evolve_realization", "shard_indices", "parse_shard",
+           "parse_dask", "check_against_exact", "converge", "RunReport", "WorkerDied"]
+
+_BLAS_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "BLIS_NUM_THREADS",
+              "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
+_THREAD_LIMIT = None
+
+
+class WorkerDied(FrontsError, RuntimeError):
+    """A worker process died; finished realizations are kept and a rerun continues the rest."""
+
+
+# ------------------------------------------------------------------------------------------- small parsers
+def parse_shard(text: str) -> tuple[int, int]:
+    """``"K/N"`` -> (K, N) with 0 <= K < N: realizations K, K+N, K+2N, ..."""
+    try:
+        k_s, n_s = str(text).split("/")
+        k, n = int(k_s), int(n_s)
+    except ValueError:
+        raise InputError(f"--shard must look like K/N (for example 0/4), got {text!r}") from None
+    if n < 1 or not 0 <= k < n:
+        raise InputError(f"--shard K/N needs N >= 1 and 0 <= K < N (K counts from 0), got {text!r}")
+    return k, n
+
+
+def shard_indices(n_realizations: int, shard: tuple[int, int] | None = None) -> list[int]:
+    """Realizations of one shard: K, K+N, ... below ``n_realizations`` (all of them for no shard)."""
+    k, n = shard or (0, 1)
+    return list(range(k, n_realizations, n))
+
+
+def parse_dask(spec: str) -> tuple[str, Any]:
+    """``"local:N"`` -> ("local", N); ``"tcp://host:port"`` (or tls://, ws://, inproc://) -> ("address", spec)."""
+    if not isinstance(spec, str):
+        raise InputError(f"--dask must be local:N or a scheduler address like tcp://host:8786, got {spec!r}")
+    if spec.startswith("local:"):
+        try:
+            n = int(spec[6:])
+        except ValueError:
+            n = 0
+        if n < 1:
+            raise InputError(f"--dask local:N needs a positive number of workers N, got {spec!r}")
+        return "local", n
+    if "://" in spec and spec.split("://", 1)[0] in ("tcp", "tls", "ws", "wss", "inproc", "ucx") \
+            and spec.split("://", 1)[1]:
+        return "address", spec
+    raise InputError(f"--dask must be local:N (a local Dask cluster of N processes) or a scheduler address "
+                     f"like tcp://host:8786, got {spec!r}")
+
+
+# ------------------------------------------------------------------------------------------- threads
+def limit_threads() -> None:
+    """One BLAS/OpenMP thread in this process (threadpoolctl), for reproducible, non-oversubscribed runs."""
+    global _THREAD_LIMIT
+    if _THREAD_LIMIT is None:
+        from threadpoolctl import threadpool_limits
+
+        _THREAD_LIMIT = threadpool_limits(limits=1)
+
+
+@contextlib.contextmanager
+def _single_thread_env():
+    """Set the BLAS thread variables to 1 while child processes are started (restored afterwards)."""
+    old = {v: os.environ.get(v) for v in _BLAS_VARS}
+    os.environ.update({v: "1" for v in _BLAS_VARS})
+    try:
+        yield
+    finally:
+        for v, val in old.items():
+            if val is None:
+                os.environ.pop(v, None)
+            else:
+                os.environ[v] = val
+
+
+def _init_worker() -> None:
+    limit_threads()
+
+
+# ------------------------------------------------------------------------------------------- one realization
+def evolve_realization(chain, *, w: str, site: int, times: Sequence[float], engine: dict,
+                       probes: Sequence[str] = ("X", "Y", "Z"), bits: Sequence[str] | None = None,
+                       resume: dict | None = None,
+                       on_block: Callable[[Any, dict, int], None] | None = None) -> dict:
+    """Evolve W at ``site`` on ``chain`` and read out every requested time.
+
+    Parameters
+    ----------
+    chain : Chain
+    w, site : str, int
+        The evolved operator and its site.
+    times : sequence of float
+        Output times (units 1/J).
+    engine : dict
+        ``chi``, ``dt``, ``order``, ``cutoff``, ``chunk`` of :class:`mpo_fronts.evolve.OperatorTEBD`.
+    probes : sequence of str
+        Probes V whose OTOC is stored.
+    bits : sequence of str, optional
+        Basis states for product-state OTOCs ('0' = spin up); None for infinite temperature.
+    resume : dict, optional
+        A checkpoint (``state``, ``outputs``, ``n_done``, ``wall_time``, ``restarts``) to continue from.
+    on_block : callable, optional
+        ``on_block(engine, outputs, n_done)`` after every block of Trotter steps (checkpoints, progress).
+
+    Returns
+    -------
+    dict
+        ``times``, ``otoc`` {v: (n_t, L)}, ``weights`` (n_t, L, 4), ``right_weight`` (n_t, L),
+        ``discarded_weight`` (n_t,), ``max_bond`` (n_t,), ``state_otoc`` {v: (S, n_t, L)} or None, ``bits``,
+        ``engine`` (settings incl. ``max_step``), ``wall_time`` (s, including resumed sessions), ``restarts``,
+        ``resumed_from`` (time of the checkpoint, or None).
+    """
+    from .evolve import SVD_FLOOR, OperatorTEBD, step_plan
+    from .readout import otoc_from_weights, pauli_weights, product_state_otoc, right_weights
+
+    t_start = time.perf_counter()
+    ts = np.asarray(times, dtype=float)
+    n_t, L = ts.size, chain.L
+    eng = OperatorTEBD(chain, w=w, site=site, chi=engine["chi"], dt=engine["dt"], order=engine["order"],
+                       cutoff=engine["cutoff"], chunk=engine["chunk"])
+    S = len(bits) if bits is not None else 0
+    out: dict[str, Any] = {"weights": np.zeros((n_t, L, 4)), "right_weight": np.zeros((n_t, L)),
+                           "discarded_weight": np.zeros(n_t), "max_bond": np.zeros(n_t, dtype=np.int64)}
+    if bits is not None:
+        out["state_otoc"] = {v: np.zeros((S, n_t, L)) for v in probes}
+    n_done = 0
+    wall_before, restarts, resumed_from = 0.0, 0, None
+
+    def measure(k: int, e) -> None:
+        out["weights"][k] = pauli_weights(e.arrays, e.center)
+        out["right_weight"][k] = right_weights(e.arrays)
+        out["discarded_weight"][k] = e.discarded_weight
+        out["max_bond"][k] = e.max_bond
+        if bits is not None:
+            for v in probes:
+                for s, b in enumerate(bits):
+                    out["state_otoc"][v][s, k] = product_state_otoc(e.arrays, b, v)
+
+    if resume is not None:
+        eng.load_state_dict(resume["state"])
+        n_done = int(resume["n_done"])
+        for name, arr in resume["outputs"].items():
+            if isinstance(arr, dict):
+                for v, a in arr.items():
+                    out[name][v][:, :n_done] = a
+            else:
+                out[name][:n_done] = arr
+        wall_before, restarts, resumed_from = float(resume["wall_time"]), int(resume["restarts"]) + 1, eng.t
+        # outputs whose blocks are all done; the checkpoint may predate the readout of the last one
+        last_block: dict[int, int] = {}
+        for i, (kk, _, _) in enumerate(step_plan(ts, eng.dt, eng.chunk)):
+            last_block[kk] = i
+        complete = sum(1 for i in last_block.values() if i < eng.blocks_done)
+        if complete - n_done > 1:
+            raise InputError(f"checkpoint is inconsistent: {n_done} outputs stored, {complete} due")
+        if complete == n_done + 1:
+            measure(n_done, eng)
+            n_done += 1
+
+    state = {"n_done": n_done}
+
+    def hook(e) -> None:
+        if on_block is not None:
+            on_block(e, out, state["n_done"])
+
+    for k, e in eng.run(ts, hook=hook):
+        measure(k, e)
+        state["n_done"] = k + 1
+    result = dict(out)
+    result["times"] = ts
+    if bits is not None:
+        result["otoc"] = {v: out["state_otoc"][v].mean(axis=0) for v in probes}
+        result["bits"] = list(bits)
+    else:
+        result["otoc"] = {v: otoc_from_weights(out["weights"], v) for v in probes}
+        result["state_otoc"] = None
+        result["bits"] = None
+    result["engine"] = {"method": "mpo_tebd", "chi": eng.chi, "dt": eng.dt, "order": eng.order,
+                        "cutoff": eng.cutoff, "chunk": eng.chunk, "max_step": eng.max_step, "svd_floor": SVD_FLOOR}
+    result["wall_time"] = wall_before + time.perf_counter() - t_start
+    result["restarts"] = restarts
+    result["resumed_from"] = resumed_from
+    return result
+
+
+def _realization_payload(desc: RunDescription, real: Realization, result: dict) -> dict:
+    result = dict(result)
+    result["fields"] = np.asarray(real.fields, dtype=float)
+    result["couplings"] = np.asarray(real.couplings, dtype=float)
+    result["seed"] = list(real.seed)
+    return result
+
+
+def compute_realization(run_dir: str, description: dict, k: int, run_id: str,
+                        progress: Callable[[int, float], None] | None = None) -> dict:
+    """Compute realization k of a run directory (claim, resume, evolve, write atomically, release).
+
+    This is the task every executor runs. ``description`` is the resolved description as a dict (its [run]
+    table decides checkpoints and claim timeouts).
+
+    Returns
+    -------
+    dict
+        ``{"k", "status"}`` with status ``"done"`` (computed now; also ``wall_time``, ``resumed_from``),
+        ``"exists"`` (already finished) or ``"busy"`` (claimed by a live process of another run; ``owner``).
+    """
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1):
+        return _compute_realization(run_dir, description, k, run_id, progress)
+
+
+def _compute_realization(run_dir, description, k, run_id, progress) -> dict:
+    desc = parse_description(description)
+    rd = RunDirectory(run_dir, desc)
+    claim = rd.claim(k, run_id)
+    if claim == "done":
+        return {"k": k, "status": "exists"}
+    if isinstance(claim, ClaimInfo):
+        return {"k": k, "status": "busy", "owner": {"host": claim.host, "pid": claim.pid, "run_id": claim.run_id,
+                                                    "t": claim.t}}
+    try:
+        opts = desc.run_options
+        real = desc.realization(k)
+        ckpt = rd.load_checkpoint(k) if opts["checkpoints"] else None
+        last = {"t": time.monotonic()}
+        wall0 = ckpt["wall_time"] if ckpt else 0.0
+        restarts = ckpt["restarts"] + 1 if ckpt else 0
+        t_session = time.perf_counter()
+
+        def on_block(e, outputs, n_done):
+            claim.progress(e.t)
+            if progress is not None:
+                progress(k, e.t)
+            if opts["checkpoints"] and time.monotonic() - last["t"] >= opts["checkpoint_interval"]:
+                rd.save_checkpoint(k, e.state_dict(), outputs, n_done,
+                                   wall0 + time.perf_counter() - t_session, restarts)
+                last["t"] = time.monotonic()
+
+        result = evolve_realization(real.chain, w=desc.w, site=desc.site, times=desc.times, engine=desc.engine,
+                                    probes=desc.probes, bits=real.bits, resume=ckpt, on_block=on_block)
+        rd.write_result(k, _realization_payload(desc, real, result))
+        rd.remove_checkpoint(k)
+    finally:
+        claim.release()
+    return {"k": k, "status": "done", "wall_time": result["wall_time"], "resumed_from": result["resumed_from"]}
+
+
+# ------------------------------------------------------------------------------------------- progress
+class _Progress:
+    """A tqdm bar over realizations and evolution time on a terminal; periodic log lines otherwise."""
+
+    def __init__(self, mode: str, n_total: int, n_before: int, n_todo: int, t_final: float, stream,
+                 log_interval: float, label: str = ""):
+        if mode == "auto":
+            mode = "bar" if getattr(stream, "isatty", lambda: False)() else "log"
+        self.mode = mode
+        self.stream = stream
+        self.n_total, self.n_before, self.n_todo, self.t_final = n_total, n_before, n_todo, t_final
+        self.log_interval = log_interval
+        self.label = label
+        self.t0 = time.monotonic()
+        self.last_log = -math.inf
+        self.done_now = 0
+        self.running: dict[int, float] = {}
+        if mode == "bar":
+            from tqdm import tqdm
+
+            self.bar_r = tqdm(total=n_total, initial=n_before, desc=f"{label}realizations", unit="real",
+                              file=stream, position=0, leave=True, dynamic_ncols=True)
+            self.bar_t = tqdm(total=round(n_todo * t_final, 3), desc=f"{label}evolution time", unit="t",
+                              file=stream, position=1, leave=True, dynamic_ncols=True,
+                              bar_format="{l_bar}{bar}| {n:.1f}/{total:.1f} [{elapsed}<{remaining}]")
+        elif mode == "log":
+            self._log(force=True)
+
+    def _log(self, force: bool = False) -> None:
+        now = time.monotonic()
+        if not force and now - self.last_log < self.log_interval:
+            return
+        self.last_log = now
+        run = ", ".join(f"r{k} t={t:.3g}" for k, t in sorted(self.running.items())[:6])
+        more = " ..." if len(self.running) > 6 else ""
+        el = int(now - self.t0)
+        print(f"[fronts] {self.label}{self.n_before + self.done_now}/{self.n_total} realizations done"
+              f"{f'; running: {run}{more} (of t={self.t_final:g})' if run else ''}; elapsed "
+              f"{el // 3600}:{el // 60 % 60:02d}:{el % 60:02d}", file=self.stream, flush=True)
+
+    def update(self, done_now: int | None = None, running: dict[int, float] | None = None) -> None:
+        if done_now is not None:
+            self.done_now = done_now
+        if running is not None:
+            self.running = dict(running)
+        if self.mode == "bar":
+            self.bar_r.n = self.n_before + self.done_now
+            self.bar_r.refresh()
+            self.bar_t.n = round(min(self.n_todo * self.t_final,
+                                     self.done_now * self.t_final + sum(self.running.values())), 3)
+            self.bar_t.refresh()
+        elif self.mode == "log":
+            self._log()
+
+    def close(self) -> None:
+        if self.mode == "bar":
+            self.bar_r.close()
+            self.bar_t.close()
+        elif self.mode == "log":
+            self.running = {}
+            self._log(force=True)
+
+
+# ------------------------------------------------------------------------------------------- the driver
+@dataclass
+class RunReport:
+    """What one call of :func:`run_ensemble` did."""
+
+    path: Path
+    selected: list[int]
+    computed: list[int] = field(default_factory=list)
+    existing: list[int] = field(default_factory=list)
+    busy: dict[int, dict] = field(default_factory=dict)
+    resumed: dict[int, float] = field(default_factory=dict)
+    elapsed: float = 0.0
+
+    @property
+    def complete(self) -> bool:
+        """True when every selected realization is finished."""
+        return not self.busy
+
+
+def _make_dask_client(spec: str):
+    kind, arg = parse_dask(spec)
+    distributed = require("distributed", "dask")
+    import logging
+
+    if kind == "local":
+        cluster = distributed.LocalCluster(n_workers=arg, threads_per_worker=1, processes=True,
+                                           dashboard_address=None, silence_logs=logging.ERROR)
+        return distributed.Client(cluster), cluster
+    try:
+        return distributed.Client(arg, timeout="15s"), None
+    except (OSError, TimeoutError) as exc:
+        raise UserError(f"cannot reach the Dask scheduler at {arg} ({exc}); start one with 'dask scheduler' "
+                        "and workers with 'dask worker ADDRESS', or use --dask local:N") from None
+
+
+def run_ensemble(description: RunDescription, out, *, workers: int = 1, dask: str | None = None,
+                 shard: tuple[int, int] | None = None, realizations: Sequence[int] | None = None,
+                 wait: bool = False, progress: str = "auto", log_interval: float = 30.0, stream=None,
+                 retries: int = 2, poll: float = 0.25) -> RunReport:
+    """Compute the missing realizations of a description into a run directory.
+
+    Parameters
+    ----------
+    description : RunDescription
+        From :func:`mpo_fronts.config.read_description`.
+    out : path
+        Run directory (created; an existing one must hold the same description, see
+        :meth:`mpo_fronts.store.RunDirectory.create`).
+    workers : int
+        Local worker processes (1: serial, in this process).
+    dask : str, optional
+        ``"local:N"`` or a scheduler address ``"tcp://host:port"``; excludes ``workers > 1``.
+    shard : (K, N), optional
+        Compute only realizations K, K+N, ... (cluster job arrays).
+    realizations : sequence of int, optional
+        Compute only these realization indices (within the description's count).
+    wait : bool
+        Wait for realizations that another live run holds, and take them over if their owner dies.
+    progress : {'auto', 'bar', 'log', 'none'}
+        Bar on a terminal, periodic log lines (every ``log_interval`` s) otherwise.
+    retries : int
+        Dask retries of a task that raised.
+
+    Returns
+    -------
+    RunReport
+    """
+    if not isinstance(description, RunDescription):
+        raise InputError("description must be a RunDescription (use mpo_fronts.config.read_description)")
+    if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
+        raise InputError(f"workers must be a positive integer, got {workers!r}")
+    if dask is not None:
+        parse_dask(dask)
+        if workers > 1:
+            raise InputError("give either --workers N (local processes) or --dask SPEC, not both")
+    if progress not in ("auto", "bar", "log", "none"):
+        raise InputError(f"progress must be 'auto', 'bar', 'log' or 'none', got {progress!r}")
+    selected = shard_indices(description.realizations, shard)
+    if realizations is not None:
+        bad = [k for k in realizations if not 0 <= k < description.realizations]
+        if bad:
+            raise InputError(f"realizations {bad} are outside 0..{description.realizations - 1}")
+        selected = [k for k in selected if k in set(realizations)]
+    t0 = time.monotonic()
+    rd = RunDirectory.create(out, description)
+    drv = _Driver(rd, selected, progress, log_interval, stream if stream is not None else sys.stderr, poll)
+    try:
+        if dask is not None:
+            drv.run_dask(dask, retries, wait)
+        elif workers > 1:
+            drv.run_processes(workers, wait)
+        else:
+            drv.run_serial(wait)
+    finally:
+        drv.bar.close()
+    drv.report.computed.sort()
+    drv.report.existing.sort()
+    drv.report.elapsed = time.monotonic() - t0
+    return drv.report
+
+
+class _Driver:
+    """State of one run_ensemble call: what is selected, done, running; the progress display."""
+
+    def __init__(self, rd: RunDirectory, selected: list[int], progress: str, log_interval: float, stream,
+                 poll: float):
+        self.rd = rd
+        self.report = RunReport(path=rd.path, selected=selected)
+        done0 = set(rd.done())
+        self.report.existing = [k for k in selected if k in done0]
+        self.todo = [k for k in selected if k not in done0]
+        self.run_id = uuid.uuid4().hex
+        self.desc_d = rd.description.to_dict()
+        self.poll = poll
+        self.running: dict[int, float] = {}
+        self.bar = _Progress(progress, len(selected), len(self.report.existing), len(self.todo),
+                             float(rd.description.times[-1]), stream, log_interval)
+
+    def on_result(self, res: dict) -> None:
+        k, status = res["k"], res["status"]
+        self.running.pop(k, None)
+        if status == "busy":
+            self.report.busy[k] = res["owner"]
+        else:
+            self.report.busy.pop(k, None)
+            if status == "done":
+                self.report.computed.append(k)
+                if res.get("resumed_from") is not None:
+                    self.report.resumed[k] = res["resumed_from"]
+            else:
+                self.report.existing.append(k)
+        self.bar.update(done_now=len(self.report.computed), running=self.running)
+
+    def poll_running(self) -> None:
+        for k, info in self.rd.claim_infos().items():
+            if info.run_id == self.run_id:
+                self.running[k] = info.t
+        self.bar.update(running=self.running)
+
+    def rounds(self, one_round: Callable[[list[int]], None], wait: bool, interval: float = 2.0) -> None:
+        """One round over everything to do; with ``wait``, retry what other live runs hold until done."""
+        one_round(self.todo)
+        while wait and self.report.busy:
+            time.sleep(interval)
+            one_round(sorted(self.report.busy))
+
+    def collect(self, futures: dict, on_error: Callable[[BaseException], BaseException] | None = None) -> None:
+        while futures:
+            for f in [f for f in futures if f.done()]:
+                futures.pop(f)
+                try:
+                    res = f.result()
+                except BaseException as exc:  # noqa: BLE001 - translated or re-raised
+                    raise (on_error(exc) if on_error is not None else exc) from None
+                self.on_result(res)
+            self.poll_running()
+            if futures:
+                time.sleep(self.poll)
+
+    # ---------------------------------------------------------------- executors
+    def run_serial(self, wait: bool) -> None:
+        def prog(k, t):
+            self.running[k] = t
+            self.bar.update(running=self.running)
+
+        def one_round(ks):
+            for k in ks:
+                self.on_result(compute_realization(str(self.rd.path), self.desc_d, k, self.run_id, progress=prog))
+
+        self.rounds(one_round, wait)
+
+    def run_processes(self, workers: int, wait: bool) -> None:
+        import multiprocessing as mp
+        from concurrent.futures import ProcessPoolExecutor
+        from concurrent.futures.process import BrokenProcessPool
+
+        def translate(exc):
+            if isinstance(exc, BrokenProcessPool):
+                return WorkerDied("a worker process died (killed, or out of memory); the finished realizations "
+                                  "are kept: run the same command again to continue")
+            return exc
+
+        with _single_thread_env():
+            pool = ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn"),
+                                       initializer=_init_worker)
+        try:
+            def one_round(ks):
+                with _single_thread_env():  # children are started on demand, at submit
+                    futures = {pool.submit(compute_realization, str(self.rd.path), self.desc_d, k, self.run_id): k
+                               for k in ks}
+                self.collect(futures, translate)
+
+            self.rounds(one_round, wait)
+        finally:
+            pool.shutdown(wait=True, cancel_futures=True)
+
+    def run_dask(self, spec: str, retries: int, wait: bool) -> None:
+        client, cluster = _make_dask_client(spec)
+        attempt = {"n": 0}
+        try:
+            def one_round(ks):
+                attempt["n"] += 1
+                futures = {client.submit(compute_realization, str(self.rd.path), self.desc_d, k, self.run_id,
+                                         pure=False, retries=retries,
+                                         key=f"fronts-{self.run_id[:8]}-{attempt['n']}-r{k:05d}"): k for k in ks}
+                self.collect(futures)
+
+            self.rounds(one_round, wait)
+        finally:
+            client.close()
+            if cluster is not None:
+                cluster.close()
+
+
+# ------------------------------------------------------------------------------------------- check and converge
+def check_against_exact(description: RunDescription, L: int = 10, realizations: int = 2,
+                        progress: Callable[[str], None] | None = None) -> dict:
+    """Run the description at a small L with exact evolution beside the engine, on identical disorder.
+
+    Realization k keeps the first ``L`` fields, couplings and basis-state bits of its full-size draw; the site
+    of W keeps its relative position (:meth:`RunDescription.site_at`). Engine settings (chi, dt, order, cutoff)
+    are those of the description, so the deviation measures Trotter and truncation error together.
+
+    Returns
+    -------
+    dict
+        ``max_deviation`` (largest |C_engine - C_exact| over realizations, probes, times, sites), ``where``
+        (realization, probe, time, site of it), ``per_realization`` [{k, max_deviation, discarded_weight,
+        max_bond}], ``L``, ``site``, ``engine``.
+    """
+    from . import exact_otoc
+
+    if isinstance(L, bool) or not isinstance(L, int) or not 2 <= L <= 12:
+        raise InputError(f"--L must be an integer in 2..12 for the exact check (dense evolution), got {L!r}")
+    if L > description.L:
+        raise InputError(f"--L = {L} exceeds the chain length of the description (model.L = {description.L})")
+    if isinstance(realizations, bool) or not isinstance(realizations, int) or realizations < 1:
+        raise InputError(f"--realizations must be a positive integer, got {realizations!r}")
+    site = description.site_at(L)
+    times = description.times
+    worst = {"max_deviation": -1.0}
+    per = []
+    with contextlib.ExitStack() as stack:
+        from threadpoolctl import threadpool_limits
+
+        stack.enter_context(threadpool_limits(limits=1))
+        for k in range(min(realizations, description.realizations)):
+            real = description.truncated_realization(k, L)
+            res = evolve_realization(real.chain, w=description.w, site=site, times=times,
+                                     engine=description.engine, probes=description.probes, bits=real.bits)
+            dev_k = 0.0
+            states = real.bits if real.bits is not None else [None]
+            for s, bits in enumerate(states):
+                ex = exact_otoc(real.chain, description.w, site, times, state=bits)
+                for v in description.probes:
+                    mine = res["state_otoc"][v][s] if bits is not None else res["otoc"][v]
+                    dev = np.abs(mine - ex.otoc(v))
+                    i = np.unravel_index(int(np.argmax(dev)), dev.shape)
+                    if dev[i] > worst["max_deviation"]:
+                        worst = {"max_deviation": float(dev[i]), "where": {
+                            "realization": k, "probe": v, "state": bits, "t": float(times[i[0]]), "r": int(i[1])}}
+                    dev_k = max(dev_k, float(dev.max()))
+            per.append({"k": k, "max_deviation": dev_k, "discarded_weight": float(res["discarded_weight"][-1]),
+                        "max_bond": int(res["max_bond"].max())})
+            if progress is not None:
+                progress(f"realization {k}: largest deviation {dev_k:.3g}, discarded weight "
+                         f"{per[-1]['discarded_weight']:.3g}")
+    return {**worst, "per_realization": per, "L": L, "site": site, "engine": description.engine,
+            "times": times.tolist()}
+
+
+def converge(description: RunDescription, chis: Sequence[int], out, *, dt: float | None = None,
+             probe: str | None = None, tol: float = 1e-2, **run_kwargs) -> dict:
+    """Run the description at each bond dimension into ``out/chi_016`` ... and store the convergence arrays.
+
+    Every chi uses the same seeds (identical disorder). The OTOCs of ``probe`` (default: the first stored probe)
+    go to :func:`mpo_fronts.analysis.bond_convergence`, whose result is written to ``out/convergence.h5``;
+    ``mpo_fronts.load(out)`` then loads the largest chi with ``.convergence`` attached.
+
+    Returns
+    -------
+    dict
+        The convergence arrays (see :func:`mpo_fronts.analysis.bond_convergence`).
+    """
+    from .store import atomic_h5, load, _write_convergence_group, CONVERGENCE_FILE, RUN_FILE
+
+    chis = sorted({int(c) for c in chis})
+    if len(chis) < 2 or chis[0] < 1:
+        raise InputError(f"--chi needs at least two distinct positive bond dimensions, got {list(chis)}")
+    probe = probe or description.probes[0]
+    if probe not in description.probes and description.state_kind != "infinite_temperature":
+        raise InputError(f"--probe {probe!r} is not stored by the description (operators.v = "
+                         f"{list(description.probes)})")
+    out = Path(out)
+    if (out / RUN_FILE).is_file():
+        raise InputError(f"{out} is a run directory; give converge a new directory (it creates chi_* inside)")
+    descs = {chi: description.replace(engine__chi=chi, **({"engine__dt": dt} if dt is not None else {}))
+             for chi in chis}
+    for chi, d in descs.items():  # check every target before any work starts
+        RunDirectory.check_target(out / f"chi_{chi:03d}", d)
+    from .analysis import bond_convergence  # noqa: F401  (fail early if missing)
+
+    otoc_by_chi = {}
+    for chi, d in descs.items():
+        run_ensemble(d, out / f"chi_{chi:03d}", **run_kwargs)
+        otoc_by_chi[chi] = load(out / f"chi_{chi:03d}").otoc(probe)
+    conv = dict(bond_convergence(otoc_by_chi, tol))
+    conv.setdefault("probe", probe)
+    conv.setdefault("tol", tol)
+    atomic_h5(out / CONVERGENCE_FILE, lambda f: _write_convergence_group(f, conv))
+    return conv
