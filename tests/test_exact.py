@@ -10,7 +10,8 @@ from scipy.special import jv
 
 import mpo_fronts as mf
 from mpo_fronts.errors import InputError
-from mpo_fronts.exact import eigenstate_otoc, exact_otoc, free_fermion_otoc
+from mpo_fronts.exact import (eigenstate_otoc, exact_otoc, free_fermion_otoc, sparse_hamiltonian,
+                              typicality_otoc)
 
 # Pauli matrices written out here (not taken from the package) for the brute-force references.
 I2 = np.eye(2, dtype=complex)
@@ -201,6 +202,56 @@ def test_clean_xx_chain_bessel():
     np.testing.assert_allclose(C[3, i + 10], 8.6177599e-06, rtol=1e-7)
 
 
+# ----------------------------------------------------------------------------------------------- typicality
+def dm_chain(L):
+    """A chain with a complex (Dzyaloshinskii-Moriya) bond term and a transverse field."""
+    return mf.nn_chain(L, 0.8 * np.kron(SZ, SZ) + 0.5 * (np.kron(SX, SY) - np.kron(SY, SX)), 0.6 * SX + 0.3 * SZ)
+
+
+def test_sparse_hamiltonian_matches_dense():
+    L = 6
+    rng = np.random.default_rng(4)
+    h, J = rng.uniform(-2, 2, L), rng.uniform(0.5, 1.5, L - 1)
+    H = sparse_hamiltonian(mf.xxz_chain(L, delta=0.6, fields=h, couplings=J))
+    assert H.dtype == np.float64
+    np.testing.assert_allclose(H.toarray(), brute_xxz(L, J, 0.6, h), atol=1e-14)
+    for chain in (mf.mixed_field_ising_chain(L), dm_chain(L)):
+        np.testing.assert_allclose(sparse_hamiltonian(chain).toarray(), chain.dense_hamiltonian(), atol=1e-14)
+
+
+@pytest.mark.parametrize("chain", [mf.xxz_chain(8, delta=0.8, W=1.5, seed=9), dm_chain(8)],
+                         ids=["xxz", "complex"])
+def test_sparse_evolution_basis_state_is_exact(chain):
+    """With a basis state instead of random states, the sparse route is the product-state OTOC itself."""
+    times = [0.0, 0.6, 2.1]
+    s = "01101001"
+    ex = exact_otoc(chain, w="Y", site=3, times=times, state=s)
+    for v in "XZ":
+        res = typicality_otoc(chain, w="Y", site=3, v=v, times=times, state=s)
+        assert res.meta["method"] == "sparse_state" and res.expected_error == 0
+        np.testing.assert_allclose(res.otoc, ex.otoc(v), atol=1e-10)
+
+
+def test_typicality_agrees_with_exact_within_statistics():
+    """Haar-random states: <psi|O|psi> - Tr O / 2^L has standard deviation <= 1/sqrt(2^L + 1) for unitary O
+    (here O = W(t) V W(t) V), so 5 standard deviations of the mean over n_states bound the deviation."""
+    L, n_states = 10, 4
+    chain = mf.xxz_chain(L, delta=1.0, W=1.0, seed=2)
+    times = [0.5, 1.5, 3.0]
+    ex = exact_otoc(chain, w="X", site=4, times=times).otoc("Z")
+    res = typicality_otoc(chain, w="X", site=4, v="Z", times=times, seed=7, n_states=n_states,
+                          probe_sites=[1, 4, 6, 9])
+    sigma = 1 / np.sqrt((2**L + 1) * n_states)
+    assert res.expected_error == pytest.approx(sigma)
+    assert res.otoc.shape == (3, 4) and res.samples.shape == (n_states, 3, 4)
+    dev = np.abs(res.otoc - ex[:, [1, 4, 6, 9]])
+    assert dev.max() < 5 * sigma
+    assert 0 < np.nanmax(res.stderr) < 5 * sigma
+    again = typicality_otoc(chain, w="X", site=4, v="Z", times=times, seed=7, n_states=n_states,
+                            probe_sites=[1, 4, 6, 9], block=1)
+    np.testing.assert_allclose(again.otoc, res.otoc, atol=1e-12)  # same seed, other blocking: same numbers
+
+
 # ----------------------------------------------------------------------------------------------- bad input
 def test_bad_input_raises_clear_errors():
     small = mf.xxz_chain(4)
@@ -222,3 +273,9 @@ def test_bad_input_raises_clear_errors():
         free_fermion_otoc(mf.xxz_chain(6, delta=0.0), times=[1.0], dt=0.1, order=3)
     with pytest.raises(InputError, match="chain"):
         exact_otoc("not a chain", times=[1.0])
+    with pytest.raises(InputError, match="n_states"):
+        typicality_otoc(small, times=[1.0], n_states=0)
+    with pytest.raises(InputError, match="probe_sites"):
+        typicality_otoc(small, times=[1.0], probe_sites=[7])
+    with pytest.raises(InputError, match="L <= 24"):
+        typicality_otoc(mf.xxz_chain(25), times=[1.0])
