@@ -77,10 +77,10 @@ def test_free_fermions_large_chain_trotterized_closed_form():
     L, dt, order = 64, 0.05, 2
     chain = mf.xxz_chain(L, delta=0.0, W=1.0, seed=64)
     ts = [0.5, 1.0, 2.0, 4.0]
-    res = mf.evolve_otoc(chain, w="Z", site=20, times=ts, chi=32, dt=dt, order=order)
+    res = mf.evolve_otoc(chain, w="Z", site=20, times=ts, chi=16, dt=dt, order=order)
     ref = free_fermion_otoc(chain, site=20, times=ts, dt=dt, order=order)
     assert np.abs(res.otoc("Z") - ref).max() <= 1e-9
-    assert res.max_bond.max() < 32  # the free-fermion operator has a small exact bond dimension
+    assert res.max_bond.max() < 16  # the free-fermion operator has a small exact bond dimension
 
 
 def test_clean_xx_chain_bessel_values():
@@ -88,7 +88,7 @@ def test_clean_xx_chain_bessel_values():
     L, i = 40, 20
     chain = mf.xxz_chain(L, delta=0.0)
     ts = [0.5, 1.0, 4.0, 5.0]
-    res = mf.evolve_otoc(chain, w="Z", site=i, times=ts, chi=32, dt=0.05, order=4)  # Trotter error ~4e-9
+    res = mf.evolve_otoc(chain, w="Z", site=i, times=ts, chi=16, dt=0.05, order=4)  # Trotter error ~4e-9
     C = res.otoc("Z")
     for k, t in enumerate(ts):
         for r in range(0, 11):
