@@ -147,18 +147,19 @@ def test_cutoff_truncates_by_discarded_weight():
     assert max_dev(r_cut, r_full) < 2 * np.sqrt(eps)
 
 
-def test_checkpoint_restore_reproduces_uninterrupted_run():
+@pytest.mark.parametrize("graded", [False, True])
+def test_checkpoint_restore_reproduces_uninterrupted_run(graded):
     chain = mf.xxz_chain(12, W=2.0, seed=1)
     ts = [0.5, 1.0, 1.5, 2.0]
-    full = OperatorTEBD(chain, w="Z", site=0, chi=16, dt=0.05, chunk=5)
+    full = OperatorTEBD(chain, w="Z", site=0, chi=16, dt=0.05, chunk=5, graded=graded)
     for _ in full.run(ts):
         pass
     saved = {}
-    part = OperatorTEBD(chain, w="Z", site=0, chi=16, dt=0.05, chunk=5)
+    part = OperatorTEBD(chain, w="Z", site=0, chi=16, dt=0.05, chunk=5, graded=graded)
     for k, e in part.run(ts, hook=lambda e: saved.setdefault(e.blocks_done, e.state_dict()) if e.blocks_done == 3 else None):
         if k == 1:
             break
-    again = OperatorTEBD(chain, w="Z", site=0, chi=16, dt=0.05, chunk=5)
+    again = OperatorTEBD(chain, w="Z", site=0, chi=16, dt=0.05, chunk=5, graded=graded)
     again.load_state_dict(saved[3])  # mid-way between outputs 0 and 1
     rest = {k: e for k, e in again.run(ts)}
     assert min(rest) == 1  # continues after the blocks done; does not repeat output 0
