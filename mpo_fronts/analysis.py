@@ -549,6 +549,8 @@ def light_cone(times, C, site: int, threshold: float = 0.5, *, trusted=None, cur
     for law, (formula, pname, units) in LAWS.items():
         y = ts_use if law == "ballistic" else np.log(ts_use)
         f = fit_line(x, y)
+        if f["n"] < 3:  # two points always fit a line; report no fit rather than a fit without a test
+            f.update(slope=float("nan"), intercept=float("nan"), r2=float("nan"), residuals=np.full(f["n"], np.nan))
         slope, icpt = f["slope"], f["intercept"]
         value = 1.0 / slope if np.isfinite(slope) and slope > 0 else float("nan")
         pred_t = slope * x + icpt if law == "ballistic" else np.exp(slope * x + icpt)
@@ -558,8 +560,8 @@ def light_cone(times, C, site: int, threshold: float = 0.5, *, trusted=None, cur
             "law": formula, "parameter": pname, "units": units, "value": value,
             "slope": slope, "intercept": icpt, "intercept_name": "t0" if law == "ballistic" else "c",
             "distances": d[use], "tstar": ts_use, "residuals": f["residuals"],
-            "rms_residual": float(np.sqrt(np.mean(f["residuals"] ** 2))) if f["n"] >= 2 else float("nan"),
-            "rms_log_residual": float(np.sqrt(np.nanmean(log_res ** 2))) if f["n"] >= 2 else float("nan"),
+            "rms_residual": float(np.sqrt(np.mean(f["residuals"] ** 2))) if f["n"] >= 3 else float("nan"),
+            "rms_log_residual": float(np.sqrt(np.nanmean(log_res ** 2))) if f["n"] >= 3 else float("nan"),
             "r2": f["r2"], "n_points": int(f["n"]), "r_range": [int(lo), int(hi)], "ci": ci, **counts,
         }
         band_lo = band_hi = np.full(d_band.size, np.nan)
@@ -605,6 +607,8 @@ def light_cone(times, C, site: int, threshold: float = 0.5, *, trusted=None, cur
             else:
                 entry["ci_low"] = entry["ci_high"] = float("nan")
                 entry["slope_ci"] = entry["intercept_ci"] = [float("nan")] * 2
+        if x.size < 3:
+            entry["ci_method"] = "no fit: fewer than 3 distances with a trusted crossing in the fit range"
         entry["band"] = {"d": d_band, "low": band_lo, "high": band_hi,
                          "fit": (slope * d_band + icpt) if law == "ballistic" else np.exp(slope * d_band + icpt)}
         fits[law] = entry
@@ -623,8 +627,8 @@ def _moments(rho: np.ndarray, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def front_shape(times, rho, site: int, *, t_range: tuple[float, float] | None = None, edge_tol: float = 1e-3,
-                edge_sites: int = 2, min_width: float = 0.5, n_boot: int = 500, ci: float = 0.95,
-                seed: int = 0) -> dict[str, Any]:
+                edge_sites: int = 2, min_width: float = 0.5, trusted_times=None, n_boot: int = 500,
+                ci: float = 0.95, seed: int = 0) -> dict[str, Any]:
     """Front position and width from the right-weight profile, and the width-growth exponent.
 
     The right weight rho(r, t) is the weight of Pauli strings whose rightmost non-identity letter sits at r
@@ -641,6 +645,8 @@ def front_shape(times, rho, site: int, *, t_range: tuple[float, float] | None = 
         Right-weight profiles.
     site : int
         Site i of W. The right weight describes the right end of the operator only.
+    trusted_times : bool array (n_t,), optional
+        Times allowed in the exponent fit (default all); ``n_excluded_times`` counts those left out.
     n_boot, ci, seed
         Bootstrap over realizations for the interval of beta (least-squares standard error when R = 1).
 
@@ -669,6 +675,9 @@ def front_shape(times, rho, site: int, *, t_range: tuple[float, float] | None = 
     tot = prof.sum(axis=-1)
     with np.errstate(invalid="ignore", divide="ignore"):
         edge = prof[:, L - edge_sites:].sum(axis=-1) / tot
+    tt = np.ones(t.size, bool) if trusted_times is None else np.asarray(trusted_times, dtype=bool).reshape(-1)
+    if tt.size != t.size:
+        raise InputError(f"trusted_times must have one entry per time ({t.size}), got {tt.size}")
     if t_range is None:
         sel = (t > 0) & (wid >= min_width) & (edge < edge_tol)
         rng_t = [float(t[sel].min()), float(t[sel].max())] if sel.any() else [float("nan")] * 2
@@ -679,12 +688,16 @@ def front_shape(times, rho, site: int, *, t_range: tuple[float, float] | None = 
             raise InputError(f"t_range must be a pair of times (t_low, t_high), got {t_range!r}") from None
         sel = (t >= t_lo) & (t <= t_hi) & (t > 0) & (wid > 0)
         rng_t = [t_lo, t_hi]
+    n_excl = int(np.sum(sel & ~tt))
+    sel = sel & tt
+    if t_range is None:
+        rng_t = [float(t[sel].min()), float(t[sel].max())] if sel.any() else [float("nan")] * 2
     lt, lw = np.log(t[sel]), np.log(wid[sel])
     f = fit_line(lt, lw)
     alpha = 100 * (1 - ci) / 2
     out = {"value": f["slope"], "prefactor": float(np.exp(f["intercept"])) if np.isfinite(f["intercept"]) else
            float("nan"), "t_range": rng_t, "n_points": int(f["n"]), "residuals": f["residuals"], "r2": f["r2"],
-           "times": t[sel], "law": "w = a t^beta", "ci": ci}
+           "times": t[sel], "law": "w = a t^beta", "ci": ci, "n_excluded_times": n_excl}
     if R >= 2 and n_boot > 0 and f["n"] >= 3:
         rng = np.random.default_rng(seed)
         cnt = _boot_counts(rng, n_boot, R)
@@ -814,9 +827,24 @@ def ensemble_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, use_tr
     return out
 
 
-def ensemble_front(ens, **opts) -> dict[str, Any]:
-    """:func:`front_shape` of a loaded ensemble's right-weight profiles."""
-    return front_shape(ens.times, ens.right_weight, int(ens.site), **opts)
+def ensemble_front(ens, *, use_trust: bool = True, max_discarded: float = DEFAULT_MAX_DISCARDED,
+                   **opts) -> dict[str, Any]:
+    """:func:`front_shape` of a loaded ensemble's right-weight profiles, fitted on trusted times only.
+
+    A time is trusted for the front when the trust mask (:func:`trust_mask`) holds in every realization at
+    every site from one width behind the mean front position to the right end of the chain.
+    """
+    rho = np.asarray(ens.right_weight, dtype=float)
+    site = int(ens.site)
+    if use_trust and "trusted_times" not in opts:
+        mask, info = trust_mask(ens, True, max_discarded)
+        R, n_t, L = rho.shape
+        m = np.broadcast_to(mask, (R, n_t, L)).all(axis=0)
+        pos, wid = _moments(rho.mean(axis=0), np.arange(L) - site)
+        start = np.clip(site + np.floor(np.nan_to_num(pos - wid)).astype(int), 0, L - 1)
+        opts["trusted_times"] = np.array([m[k, start[k]:].all() for k in range(n_t)])
+    out = front_shape(ens.times, rho, site, **opts)
+    return out
 
 
 def ensemble_distribution(ens, r: int | None = None, probe: str = "Z", **opts) -> dict[str, Any]:
@@ -924,7 +952,7 @@ def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "me
     smaller = None
     if np.isfinite(rb) and np.isfinite(rl):
         smaller = "ballistic" if rb < rl else "log"
-    fr = ensemble_front(ens, n_boot=n_boot, ci=ci, seed=seed)
+    fr = ensemble_front(ens, use_trust=use_trust, max_discarded=max_discarded, n_boot=n_boot, ci=ci, seed=seed)
     we = fr["width_exponent"]
     dist = ensemble_distribution(ens, probe=probe)
     bim = dist["bimodality"]
@@ -952,7 +980,7 @@ def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "me
                       "tstar_boot_std": lc["tstar_boot_std"],
                       "realization_counts": lc["realization_crossings"].counts()},
         "front": {"width_exponent": {k: we[k] for k in ("value", "ci_low", "ci_high", "ci_method", "t_range",
-                                                        "n_points", "r2", "law")},
+                                                        "n_points", "r2", "law", "n_excluded_times")},
                   "final_position": fr["position"][-1], "final_width": fr["width"][-1],
                   "note": "from the right-weight profile: the right end of W(t)"},
         "distribution": {"r": dist["r"], "d": dist["d"], "measure": "Sarle's bimodality coefficient "

@@ -222,6 +222,10 @@ def plot_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, lc: dict |
                 val = f["value"]
                 name = (f"{f['law']}, v_B = {val:.3g}" if law == "ballistic" else f"{f['law']}, xi = {val:.3g}")
                 ax.plot(band["d"], band["fit"], ls=style, color=c, lw=1.6, label=name, zorder=2)
+        ax.set_xlim(-0.5, d.max() + 0.5)
+        if not np.any(ok & (d >= 1)):
+            ax.text(0.5, 0.5, f"no trusted crossing of C = {lc['threshold']:g} at d >= 1", ha="center",
+                    va="center", transform=ax.transAxes, fontsize=8, color="0.3")
         ax.set_xlabel(_D_LABEL)
         if j == 0:
             ax.set_ylabel("crossing time t* (1/J)")
@@ -293,7 +297,10 @@ def plot_front(ens, n_profiles: int = 6, **opts):
     wexp = fr["width_exponent"]
     tw, ww = t[keep], fr["width"][keep]
     pos = ww > 0
-    bx.plot(tw[pos], ww[pos], "o", color="k", ms=3, label="width of the mean profile")
+    used = np.isin(tw, wexp["times"])
+    bx.plot(tw[pos & used], ww[pos & used], "o", color="k", ms=3, label="width of the mean profile (fitted)")
+    bx.plot(tw[pos & ~used], ww[pos & ~used], "o", mfc="none", mec="k", ms=3,
+            label="not fitted (outside the window or untrusted)")
     if np.isfinite(wexp["value"]):
         tt = wexp["times"]
         bx.plot(tt, wexp["prefactor"] * tt ** wexp["value"], color=_colors(1, lo=0.55)[0], lw=2.0,

@@ -218,6 +218,9 @@ def test_front_width_exponent_inside_interval():
     assert we["ci_high"] - we["ci_low"] < 0.1
     np.testing.assert_allclose(fr["position"], 5 + v * t, atol=0.05)
     assert we["t_range"][1] <= t[-1] and we["n_points"] >= 10
+    late_bad = t < 20.0  # distrust the times from t = 20 on
+    part = an.front_shape(t, rho, site, n_boot=50, trusted_times=late_bad)["width_exponent"]
+    assert part["t_range"][1] < 20.0 and part["n_excluded_times"] == we["n_points"] - part["n_points"] > 0
 
 
 # ------------------------------------------------------------------------------------------ convergence, trust
