@@ -279,7 +279,7 @@ def _compute_realization(run_dir, description, k, run_id, progress) -> dict:
 
         result = evolve_realization(real.chain, w=desc.w, site=desc.site, times=desc.times, engine=desc.engine,
                                     probes=desc.probes, bits=real.bits, resume=ckpt, on_block=on_block)
-        rd.write_result(k, _realization_payload(desc, real, result))
+        rd.write_result(k, dict(_realization_payload(desc, real, result), run_id=run_id))
         rd.remove_checkpoint(k)
     finally:
         claim.release()
@@ -433,11 +433,18 @@ def run_ensemble(description: RunDescription, out, *, workers: int = 1, dask: st
             raise InputError(f"realizations {bad} are outside 0..{description.realizations - 1}")
         selected = [k for k in selected if k in set(realizations)]
     t0 = time.monotonic()
-    rd = RunDirectory.create(out, description)
+    RunDirectory.check_target(out, description)  # before anything is written or started
+    client = _make_dask_client(dask) if dask is not None else None
+    try:
+        rd = RunDirectory.create(out, description)
+    except BaseException:
+        if client is not None:
+            _close_dask(*client)
+        raise
     drv = _Driver(rd, selected, progress, log_interval, stream if stream is not None else sys.stderr, poll)
     try:
-        if dask is not None:
-            drv.run_dask(dask, retries, wait)
+        if client is not None:
+            drv.run_dask(client, retries, wait)
         elif workers > 1:
             drv.run_processes(workers, wait)
         else:
@@ -545,8 +552,8 @@ class _Driver:
         finally:
             pool.shutdown(wait=True, cancel_futures=True)
 
-    def run_dask(self, spec: str, retries: int, wait: bool) -> None:
-        client, cluster = _make_dask_client(spec)
+    def run_dask(self, client_cluster, retries: int, wait: bool) -> None:
+        client, cluster = client_cluster
         attempt = {"n": 0}
         try:
             def one_round(ks):
@@ -558,9 +565,15 @@ class _Driver:
 
             self.rounds(one_round, wait)
         finally:
-            client.close()
-            if cluster is not None:
-                cluster.close()
+            _close_dask(client, cluster)
+
+
+def _close_dask(client, cluster) -> None:
+    with contextlib.suppress(Exception):
+        client.close()
+    if cluster is not None:
+        with contextlib.suppress(Exception):
+            cluster.close()
 
 
 # ------------------------------------------------------------------------------------------- check and converge

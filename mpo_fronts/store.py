@@ -401,6 +401,10 @@ class RunDirectory:
             f.attrs["wall_time"] = result["wall_time"]
             f.attrs["restarts"] = result.get("restarts", 0)
             f.attrs["host"] = socket.gethostname()
+            f.attrs["pid"] = os.getpid()
+            f.attrs["run_id"] = str(result.get("run_id", ""))
+            if result.get("resumed_from") is not None:
+                f.attrs["resumed_from"] = float(result["resumed_from"])
             f.attrs["created"] = time.strftime("%Y-%m-%dT%H:%M:%S%z")
             _write_arrays(f, result)
 
@@ -419,11 +423,19 @@ class RunDirectory:
             f.attrs["n_done"] = n_done
             f.attrs["wall_time"] = wall_time
             f.attrs["restarts"] = restarts
-            scalars = {key: v for key, v in state.items() if key != "arrays"}
+            scalars = {}
+            lists = f.create_group("engine_lists")
+            for key, value in state.items():
+                if isinstance(value, (list, tuple)) and all(isinstance(x, np.ndarray) for x in value):
+                    g = lists.create_group(key)
+                    for i, A in enumerate(value):
+                        g.create_dataset(f"{i:05d}", data=A)
+                elif isinstance(value, np.ndarray):
+                    f.create_group("engine_arrays").create_dataset(key, data=value) \
+                        if "engine_arrays" not in f else f["engine_arrays"].create_dataset(key, data=value)
+                else:
+                    scalars[key] = value.item() if isinstance(value, np.generic) else value
             f.attrs["engine_state"] = json.dumps(scalars)
-            g = f.create_group("arrays")
-            for i, A in enumerate(state["arrays"]):
-                g.create_dataset(f"{i:05d}", data=A)
             o = f.create_group("outputs")
             for name, arr in outputs.items():
                 if isinstance(arr, dict):
@@ -447,7 +459,11 @@ class RunDirectory:
                 if f.attrs.get("fingerprint") != self.description.fingerprint():
                     return None
                 state = json.loads(f.attrs["engine_state"])
-                state["arrays"] = [f["arrays"][name][()] for name in sorted(f["arrays"])]
+                for key, g in f["engine_lists"].items():
+                    state[key] = [g[name][()] for name in sorted(g)]
+                if "engine_arrays" in f:
+                    for key, a in f["engine_arrays"].items():
+                        state[key] = a[()]
                 outputs: dict[str, Any] = {}
                 for name, item in f["outputs"].items():
                     outputs[name] = ({v: a[()] for v, a in item.items()} if isinstance(item, h5py.Group)

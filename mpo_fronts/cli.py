@@ -1,0 +1,523 @@
+"""The ``fronts`` command line: a thin layer that parses options and calls config, ensemble, store, analysis.
+
+Commands: ``run``, ``status``, ``merge``, ``check``, ``converge``, ``summary``, ``plot``, ``demo``
+(``fronts COMMAND --help`` explains each option with its default). User errors (a bad description, option or
+directory) print a one-paragraph message and exit with code 2, without a traceback, before anything is
+written; a check that fails its tolerance exits with 1.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import textwrap
+from pathlib import Path
+from typing import Sequence
+
+from .errors import FrontsError, InputError, UserError
+
+__all__ = ["main", "build_parser"]
+
+EXIT_USER_ERROR = 2
+_DEMOS = ("thermal", "localized")
+
+
+# ------------------------------------------------------------------------------------------- option types
+class _Parser(argparse.ArgumentParser):
+    """argparse with one-paragraph errors and exit code 2."""
+
+    def error(self, message: str):  # pragma: no cover - exercised through subprocess tests
+        self.exit(EXIT_USER_ERROR, f"{self.prog}: error: {message} (see '{self.prog} --help')\n")
+
+
+def _positive_int(text: str) -> int:
+    try:
+        v = int(text)
+    except ValueError:
+        v = 0
+    if v < 1:
+        raise argparse.ArgumentTypeError(f"expected a positive integer, got {text!r}")
+    return v
+
+
+def _positive_float(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        v = -1.0
+    if not v > 0 or v != v or v == float("inf"):
+        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}")
+    return v
+
+
+def _nonneg_float(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        v = -1.0
+    if not v >= 0 or v == float("inf"):
+        raise argparse.ArgumentTypeError(f"expected a number >= 0, got {text!r}")
+    return v
+
+
+def _shard(text: str):
+    from .ensemble import parse_shard
+
+    try:
+        return parse_shard(text)
+    except InputError as exc:
+        raise argparse.ArgumentTypeError(str(exc).replace("--shard ", "")) from None
+
+
+def _dask(text: str) -> str:
+    from .ensemble import parse_dask
+
+    try:
+        parse_dask(text)
+    except InputError as exc:
+        raise argparse.ArgumentTypeError(str(exc).replace("--dask ", "")) from None
+    return text
+
+
+def _chi_list(text: str) -> list[int]:
+    try:
+        vals = [int(x) for x in text.split(",") if x.strip()]
+    except ValueError:
+        vals = []
+    if len(vals) < 2 or min(vals) < 1 or len(set(vals)) != len(vals):
+        raise argparse.ArgumentTypeError(f"expected at least two distinct positive bond dimensions separated by "
+                                         f"commas (for example 16,32,64), got {text!r}")
+    return sorted(vals)
+
+
+def _probe(text: str) -> str:
+    if text.upper() not in ("X", "Y", "Z"):
+        raise argparse.ArgumentTypeError(f"expected X, Y or Z, got {text!r}")
+    return text.upper()
+
+
+def _threshold(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        v = -1.0
+    if not 0 < v < 2:
+        raise argparse.ArgumentTypeError(f"expected a number in (0, 2) (C lies in [0, 2]), got {text!r}")
+    return v
+
+
+def _realization_list(text: str) -> list[int]:
+    out: list[int] = []
+    try:
+        for part in text.split(","):
+            if "-" in part:
+                a, b = part.split("-")
+                out += list(range(int(a), int(b) + 1))
+            elif part.strip():
+                out.append(int(part))
+    except ValueError:
+        out = []
+    if not out or min(out) < 0:
+        raise argparse.ArgumentTypeError(f"expected realization indices like 0,3,5-9, got {text!r}")
+    return sorted(set(out))
+
+
+# ------------------------------------------------------------------------------------------- parser
+def _add_executor_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--workers", type=_positive_int, default=1, metavar="N",
+                   help="local worker processes, one BLAS thread each (default: 1, serial in this process)")
+    p.add_argument("--dask", type=_dask, default=None, metavar="SPEC",
+                   help="run on Dask instead: local:N starts a LocalCluster of N worker processes; "
+                        "tcp://HOST:PORT uses a running scheduler whose workers see the output directory at "
+                        "the same path (default: not used)")
+    p.add_argument("--progress", choices=("auto", "bar", "log", "none"), default="auto",
+                   help="progress display: a bar over realizations and evolution time on a terminal, plain "
+                        "log lines otherwise (default: auto)")
+    p.add_argument("--log-interval", type=_positive_float, default=30.0, metavar="S",
+                   help="seconds between progress log lines when not on a terminal (default: 30)")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The ``fronts`` argument parser (every option documented with its default)."""
+    parser = _Parser(prog="fronts", description="OTOC light cones in 1D spin chains by Heisenberg-picture MPO "
+                     "TEBD: production runs, checks, summaries and figures.",
+                     epilog="Start with 'fronts demo'. Every command has --help.")
+    from . import __version__
+
+    parser.add_argument("--version", action="version", version=f"mpo_fronts {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    sub.required = True
+
+    p = sub.add_parser("run", help="compute the realizations of a run description into a run directory",
+                       description="Compute the missing realizations of RUN.toml into DIR. Rerunning the same "
+                       "command continues where it stopped (finished realizations are kept; long ones resume "
+                       "from their checkpoint). A different description is refused for an existing DIR.")
+    p.add_argument("description", metavar="RUN.toml", help="the run description (see data/production_example.toml)")
+    p.add_argument("--out", "-o", required=True, metavar="DIR", help="run directory (created if missing; required)")
+    _add_executor_options(p)
+    p.add_argument("--shard", type=_shard, default=None, metavar="K/N",
+                   help="compute only realizations K, K+N, K+2N, ... (K counts from 0; for cluster job arrays "
+                        "writing into one shared DIR) (default: all)")
+    p.add_argument("--realizations", type=_realization_list, default=None, metavar="LIST",
+                   help="compute only these realization indices, for example 0,3,5-9 (default: all)")
+    p.add_argument("--checkpoint-interval", type=_positive_float, default=None, metavar="S",
+                   help="seconds between checkpoints of a running realization (default: run.checkpoint_interval "
+                        "of the description, 300)")
+    p.add_argument("--no-checkpoints", action="store_true",
+                   help="do not write checkpoints (default: write them, unless run.checkpoints = false)")
+    p.add_argument("--wait", action="store_true",
+                   help="also wait for realizations held by another live run on the same DIR, and take them "
+                        "over if that run dies (default: leave them to it)")
+
+    p = sub.add_parser("status", help="what is done, running and missing in a run directory",
+                       description="Realizations done, running (with their evolution time), checkpointed, "
+                       "missing; total wall time; largest discarded weight and bond dimension.")
+    p.add_argument("directory", metavar="DIR", help="run directory")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table (default: table)")
+
+    p = sub.add_parser("merge", help="merge run directories into one HDF5 file",
+                       description="Write every finished realization of one or more run directories (or merged "
+                       "files) of the same description into one HDF5 file, readable by mpo_fronts.load.")
+    p.add_argument("sources", nargs="+", metavar="DIR", help="run directories or merged files (same description)")
+    p.add_argument("--output", "-o", required=True, metavar="FILE.h5", help="the merged file (required)")
+    p.add_argument("--force", action="store_true", help="overwrite an existing FILE.h5 (default: refuse)")
+
+    p = sub.add_parser("check", help="compare the engine with exact evolution at a small L",
+                       description="Run the description at a small chain length with dense exact evolution "
+                       "beside the engine, on identical disorder (the first L fields and bits of each "
+                       "realization; W keeps its relative position), and print the largest deviation of C. "
+                       "Exit code 1 if it exceeds --tol.")
+    p.add_argument("description", metavar="RUN.toml", help="the run description")
+    p.add_argument("--L", type=_positive_int, default=10, help="chain length of the check, 2..12 (default: 10)")
+    p.add_argument("--realizations", type=_positive_int, default=2, metavar="N",
+                   help="realizations compared (default: 2)")
+    p.add_argument("--tol", type=_positive_float, default=1e-2,
+                   help="largest acceptable |C_engine - C_exact| (default: 0.01)")
+    p.add_argument("--json", action="store_true", help="print JSON (default: text)")
+
+    p = sub.add_parser("converge", help="run a description at several bond dimensions and compare",
+                       description="Run the description at each bond dimension into DIR/chi_016, DIR/chi_032, ... "
+                       "(same seeds, identical disorder), then store the bond-dimension convergence arrays "
+                       "(largest change of C between successive chi, trusted map) in DIR/convergence.h5. "
+                       "mpo_fronts.load(DIR) loads the largest chi with .convergence attached.")
+    p.add_argument("description", metavar="RUN.toml", help="the run description")
+    p.add_argument("--chi", type=_chi_list, required=True, metavar="LIST",
+                   help="bond dimensions, comma separated, for example 16,32,64,128 (required)")
+    p.add_argument("--out", "-o", required=True, metavar="DIR", help="study directory (required)")
+    p.add_argument("--dt", type=_positive_float, default=None,
+                   help="Trotter step for every chi (default: engine.dt of the description)")
+    p.add_argument("--probe", type=_probe, default=None,
+                   help="probe V whose C is compared (default: the first of operators.v)")
+    p.add_argument("--tol", type=_positive_float, default=1e-3,
+                   help="largest change of C between the two largest chi for a point to count as trusted "
+                        "(default: 0.001)")
+    _add_executor_options(p)
+
+    p = sub.add_parser("summary", help="light-cone velocities, fits and error information of a run",
+                       description="Summarize a finished run (directory or merged file): butterfly velocity and "
+                       "logarithmic light cone fits with intervals, crossings, front width, distributions, "
+                       "trust, discarded weight.")
+    p.add_argument("directory", metavar="DIR", help="run directory, merged file or convergence study")
+    p.add_argument("--threshold", type=_threshold, default=0.5, metavar="THETA",
+                   help="threshold theta of C in [0, 2] defining the light cone (default: 0.5)")
+    p.add_argument("--probe", type=_probe, default=None,
+                   help="probe V (default: Z if stored, else the first of operators.v)")
+    p.add_argument("--json", action="store_true", help="print JSON (default: a table)")
+
+    p = sub.add_parser("plot", help="write the figures of a run",
+                       description="Write the figures of a finished run (heat map, distribution, light cone, "
+                       "convergence, front) as files into FIGDIR.")
+    p.add_argument("directory", metavar="DIR", help="run directory, merged file or convergence study")
+    p.add_argument("--out", "-o", required=True, metavar="FIGDIR", help="folder for the figures (required)")
+    p.add_argument("--only", default=None, metavar="NAME",
+                   help="only this figure, or several separated by commas (default: all that apply)")
+    p.add_argument("--threshold", type=_threshold, default=0.5, metavar="THETA",
+                   help="threshold theta of C for contours and crossing times (default: 0.5)")
+    p.add_argument("--probe", type=_probe, default=None,
+                   help="probe V (default: Z if stored, else the first of operators.v)")
+
+    p = sub.add_parser("demo", help="run the two demo ensembles, summarize them and draw their figures",
+                       description="Run data/demo_thermal.toml (W = 0.5) and data/demo_localized.toml (W = 5), "
+                       "XXZ chains of L = 32 with invented demo parameters, then write summaries and figures. "
+                       "Rerunning reuses what is done.")
+    p.add_argument("--out", "-o", default="fronts_demo", metavar="DIR",
+                   help="folder for runs, summaries and figures (default: fronts_demo)")
+    p.add_argument("--workers", type=_positive_int, default=2, metavar="N",
+                   help="local worker processes (default: 2)")
+    p.add_argument("--progress", choices=("auto", "bar", "log", "none"), default="auto",
+                   help="progress display (default: auto)")
+    p.add_argument("--data", default=None, metavar="FOLDER",
+                   help="folder holding demo_thermal.toml and demo_localized.toml (default: the data/ folder "
+                        "of the source tree)")
+    return parser
+
+
+# ------------------------------------------------------------------------------------------- commands
+def _say(*lines: str) -> None:
+    for line in lines:
+        print(line)
+
+
+def _fmt_s(seconds: float) -> str:
+    s = int(round(seconds))
+    return f"{s // 3600}h{s // 60 % 60:02d}m{s % 60:02d}s" if s >= 3600 else f"{s // 60}m{s % 60:02d}s"
+
+
+def _cmd_run(args) -> int:
+    from .config import read_description
+    from .ensemble import run_ensemble
+
+    desc = read_description(args.description)
+    changes = {}
+    if args.checkpoint_interval is not None:
+        changes["run__checkpoint_interval"] = args.checkpoint_interval
+    if args.no_checkpoints:
+        changes["run__checkpoints"] = False
+    if changes:
+        desc = desc.replace(**changes)
+    if args.dask is not None and args.workers > 1:
+        raise InputError("give either --workers N (local processes) or --dask SPEC (Dask), not both")
+    rep = run_ensemble(desc, args.out, workers=args.workers, dask=args.dask, shard=args.shard,
+                       realizations=args.realizations, wait=args.wait, progress=args.progress,
+                       log_interval=args.log_interval)
+    _say(f"run directory: {rep.path}",
+         f"computed now: {len(rep.computed)}; already done: {len(rep.existing)}; selected: {len(rep.selected)}"
+         f"; elapsed {_fmt_s(rep.elapsed)}")
+    if rep.resumed:
+        _say("resumed from checkpoints: " + ", ".join(f"r{k} (t={t:g})" for k, t in sorted(rep.resumed.items())))
+    if rep.busy:
+        _say(f"held by another live run ({len(rep.busy)}): " + ", ".join(
+            f"r{k} ({o['host']} pid {o['pid']})" for k, o in sorted(rep.busy.items())[:10])
+            + "; see 'fronts status', or rerun with --wait")
+    _say(f"next: fronts status {args.out}; fronts merge {args.out} -o merged.h5; "
+         f"python -c \"import mpo_fronts as mf; ens = mf.load('{args.out}')\"")
+    return 0
+
+
+def _cmd_status(args) -> int:
+    from .store import run_status
+
+    st = run_status(args.directory)
+    if args.json:
+        st = dict(st)
+        st["checkpointed"] = {str(k): v for k, v in st["checkpointed"].items()}
+        print(json.dumps(st, indent=1))
+        return 0
+    d = st["description"]
+    n_done = len(st["done"])
+
+    def ks(items, limit=12):
+        items = list(items)
+        return ", ".join(f"r{k}" for k in items[:limit]) + (" ..." if len(items) > limit else "")
+
+    _say(f"run directory: {st['path']}",
+         f"  {d['model']['kind']} L={d['model']['L']}, W at site {d['operators']['site']}, "
+         f"chi={d['engine']['chi']}, dt={d['engine']['dt']}, order {d['engine']['order']}, "
+         f"{len(d['times']['values'])} times up to t={d['times']['values'][-1]:g}",
+         f"  done:         {n_done} of {st['realizations']}"
+         + (f" (wall time {_fmt_s(st['wall_time'])} total, {_fmt_s(st['wall_time'] / n_done)} per realization)"
+            if n_done else ""),
+         f"  running:      {len(st['running'])}" + ("  " + ", ".join(
+             f"r{e['k']} t={e['t']:.3g}/{e['t_final']:g} ({e['host']} pid {e['pid']})" for e in st["running"][:8])
+             if st["running"] else ""),
+         f"  checkpointed: {len(st['checkpointed'])}" + ("  " + ", ".join(
+             f"r{k} t={t:.3g}" for k, t in sorted(st["checkpointed"].items())[:8]) if st["checkpointed"] else ""),
+         f"  stale claims: {len(st['stale'])}" + (f"  {ks(e['k'] for e in st['stale'])} (owner gone; a rerun "
+                                                   "takes them over)" if st["stale"] else ""),
+         f"  missing:      {len(st['missing'])}" + (f"  {ks(st['missing'])}" if st["missing"] else ""),
+         f"  largest discarded weight: {st['max_discarded_weight']:.3g}; largest bond dimension: {st['max_bond']}"
+         if n_done else "  (no finished realization yet)")
+    return 0
+
+
+def _cmd_merge(args) -> int:
+    from .store import merge
+
+    path, ens = merge(args.sources, args.output, overwrite=args.force)
+    _say(f"merged {len(ens)} realization(s) into {path}")
+    if ens.missing:
+        _say(f"note: {len(ens.missing)} realization(s) of the description are not finished yet: "
+             + ", ".join(f"r{k}" for k in ens.missing[:12]) + (" ..." if len(ens.missing) > 12 else ""))
+    return 0
+
+
+def _cmd_check(args) -> int:
+    from .config import read_description
+    from .ensemble import check_against_exact
+
+    desc = read_description(args.description)
+    if args.L > desc.L:
+        raise InputError(f"--L = {args.L} exceeds model.L = {desc.L} of the description")
+    if args.L > 12:
+        raise InputError(f"--L = {args.L}: the exact check uses dense evolution, so --L must be at most 12")
+    res = check_against_exact(desc, L=args.L, realizations=args.realizations,
+                              progress=None if args.json else (lambda msg: print("  " + msg, flush=True)))
+    ok = res["max_deviation"] <= args.tol
+    if args.json:
+        print(json.dumps({**res, "tol": args.tol, "ok": ok}, indent=1))
+    else:
+        w = res["where"]
+        e = res["engine"]
+        _say(f"check at L = {res['L']} (W at site {res['site']}), chi={e['chi']}, dt={e['dt']}, order {e['order']}, "
+             f"cutoff {e['cutoff']:g}, {len(res['per_realization'])} realization(s) against dense exact evolution",
+             f"largest |C_engine - C_exact| = {res['max_deviation']:.3g} (realization {w['realization']}, probe "
+             f"{w['probe']}, t = {w['t']:g}, r = {w['r']}); tolerance {args.tol:g}: {'OK' if ok else 'EXCEEDED'}",
+             "largest discarded weight: "
+             f"{max(p['discarded_weight'] for p in res['per_realization']):.3g} (a deviation with no discarded "
+             "weight is Trotter error: lower engine.dt or use engine.order = 4)")
+    return 0 if ok else 1
+
+
+def _cmd_converge(args) -> int:
+    from .config import read_description
+    from .ensemble import converge
+
+    desc = read_description(args.description)
+    if args.dask is not None and args.workers > 1:
+        raise InputError("give either --workers N (local processes) or --dask SPEC (Dask), not both")
+    _need_analysis("bond_convergence")
+    conv = converge(desc, args.chi, args.out, dt=args.dt, probe=args.probe, tol=args.tol, workers=args.workers,
+                    dask=args.dask, progress=args.progress, log_interval=args.log_interval)
+    import numpy as np
+
+    trusted = np.asarray(conv.get("trusted"))
+    _say(f"convergence study in {args.out}: chi = {', '.join(str(c) for c in args.chi)}, probe "
+         f"{conv.get('probe')}, tol {args.tol:g}")
+    if "max_dC" in conv:
+        md = np.asarray(conv["max_dC"])
+        for i in range(md.shape[0]):
+            _say(f"  chi {args.chi[i]} -> {args.chi[i + 1]}: largest change of C {np.nanmax(md[i]):.3g}")
+    if trusted.size > 1:
+        _say(f"  trusted (t, r) points at chi = {args.chi[-1]}: {100 * trusted.mean():.1f}%")
+    _say(f"load it with mpo_fronts.load('{args.out}') (largest chi, with .convergence)")
+    return 0
+
+
+def _need_analysis(name: str, module: str = "analysis"):
+    import importlib
+
+    try:
+        mod = importlib.import_module(f"mpo_fronts.{module}")
+        return getattr(mod, name)
+    except (ImportError, AttributeError):
+        raise UserError(f"this installation of mpo_fronts has no mpo_fronts.{module}.{name}; update the "
+                        "package") from None
+
+
+def _default_probe(ens, probe):
+    if probe is not None:
+        return probe
+    return "Z" if "Z" in ens.probes else ens.probes[0]
+
+
+def _load(path):
+    from .store import load
+
+    ens = load(path)
+    if len(ens) == 0:
+        raise UserError(f"{path}: no finished realization yet; run 'fronts run' first (or see 'fronts status')")
+    return ens
+
+
+def _summary_text(summary: dict) -> str:
+    try:
+        fmt = _need_analysis("format_summary")
+    except UserError:
+        fmt = None
+    if fmt is not None:
+        return fmt(summary)
+    return json.dumps(summary, indent=1)  # pragma: no cover - older analysis modules
+
+
+def _cmd_summary(args) -> int:
+    summarize = _need_analysis("summarize")
+    ens = _load(args.directory)
+    s = summarize(ens, threshold=args.threshold, probe=_default_probe(ens, args.probe))
+    print(json.dumps(s, indent=1) if args.json else _summary_text(s))
+    return 0
+
+
+def _cmd_plot(args) -> int:
+    write_figures = _need_analysis("write_figures", "plots")
+    ens = _load(args.directory)
+    only = args.only.split(",") if args.only and "," in args.only else args.only
+    paths = write_figures(ens, args.out, only=only, threshold=args.threshold, probe=_default_probe(ens, args.probe))
+    _say(f"wrote {len(paths)} file(s) to {args.out}:", *(f"  {p}" for p in paths))
+    return 0
+
+
+def _demo_data(folder) -> Path:
+    if folder is not None:
+        p = Path(folder)
+    else:
+        p = Path(__file__).resolve().parent.parent / "data"
+    missing = [n for n in _DEMOS if not (p / f"demo_{n}.toml").is_file()]
+    if missing:
+        raise UserError(f"cannot find {', '.join(f'demo_{n}.toml' for n in missing)} in {p}; run 'fronts demo' "
+                        "from a source checkout of mpo_fronts or pass --data FOLDER")
+    return p
+
+
+def _cmd_demo(args) -> int:
+    from .config import read_description
+    from .ensemble import run_ensemble
+    from .store import RunDirectory
+
+    data = _demo_data(args.data)
+    summarize = _need_analysis("summarize")
+    write_figures = _need_analysis("write_figures", "plots")
+    out = Path(args.out)
+    descs = {n: read_description(data / f"demo_{n}.toml") for n in _DEMOS}
+    for n, d in descs.items():  # validate every target before any work
+        RunDirectory.check_target(out / "runs" / n, d)
+    written: list[str] = []
+    for n, d in descs.items():
+        _say(f"[demo] {n}: {d.realizations} realizations of the XXZ chain, L = {d.L}, W = "
+             f"{d['model'].get('W')}, t up to {d.times[-1]:g} (invented demo parameters)")
+        run_ensemble(d, out / "runs" / n, workers=args.workers, progress=args.progress)
+    for n in _DEMOS:
+        ens = _load(out / "runs" / n)
+        s = summarize(ens, threshold=0.5, probe=_default_probe(ens, None))
+        (out / "summary").mkdir(parents=True, exist_ok=True)
+        (out / "summary" / f"{n}.json").write_text(json.dumps(s, indent=1) + "\n")
+        text = _summary_text(s)
+        (out / "summary" / f"{n}.txt").write_text(text + "\n")
+        _say("", f"[demo] summary of {n}:", text)
+        paths = write_figures(ens, out / "figures" / n, threshold=0.5, probe=_default_probe(ens, None))
+        written += [str(p) for p in paths]
+    _say("", f"[demo] everything is in {out}:",
+         f"  runs:      {out / 'runs' / 'thermal'}, {out / 'runs' / 'localized'} (load with mpo_fronts.load)",
+         f"  summaries: {out / 'summary'} (*.txt, *.json)",
+         f"  figures:   {out / 'figures'} ({len(written)} files)")
+    return 0
+
+
+_COMMANDS = {"run": _cmd_run, "status": _cmd_status, "merge": _cmd_merge, "check": _cmd_check,
+             "converge": _cmd_converge, "summary": _cmd_summary, "plot": _cmd_plot, "demo": _cmd_demo}
+
+
+def _paragraph(message: str) -> str:
+    return textwrap.fill(" ".join(str(message).split()), width=100, subsequent_indent="  ")
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``fronts`` console script; returns the exit code."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return _COMMANDS[args.command](args)
+    except UserError as exc:
+        print(_paragraph(f"fronts {args.command}: error: {exc}"), file=sys.stderr)
+        return EXIT_USER_ERROR
+    except FrontsError as exc:
+        print(_paragraph(f"fronts {args.command}: {exc}"), file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print(f"fronts {args.command}: interrupted; finished realizations and checkpoints are kept, run the same "
+              "command again to continue", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
