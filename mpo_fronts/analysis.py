@@ -694,6 +694,8 @@ def front_shape(times, rho, site: int, *, t_range: tuple[float, float] | None = 
         rng_t = [float(t[sel].min()), float(t[sel].max())] if sel.any() else [float("nan")] * 2
     lt, lw = np.log(t[sel]), np.log(wid[sel])
     f = fit_line(lt, lw)
+    if f["n"] < 3:  # two points always fit a line; report no fit
+        f.update(slope=float("nan"), intercept=float("nan"), r2=float("nan"), residuals=np.full(f["n"], np.nan))
     alpha = 100 * (1 - ci) / 2
     out = {"value": f["slope"], "prefactor": float(np.exp(f["intercept"])) if np.isfinite(f["intercept"]) else
            float("nan"), "t_range": rng_t, "n_points": int(f["n"]), "residuals": f["residuals"], "r2": f["r2"],
@@ -772,9 +774,12 @@ def trust_from_discarded(discarded_weight, L: int, max_discarded: float = DEFAUL
     return np.broadcast_to(ok[:, :, None], dw.shape + (int(L),))
 
 
-def trust_mask(ens, use_trust: bool = True, max_discarded: float = DEFAULT_MAX_DISCARDED
+def trust_mask(ens, use_trust: bool = True, max_discarded: float = DEFAULT_MAX_DISCARDED, probe: str | None = None
                ) -> tuple[np.ndarray | None, dict[str, Any]]:
     """Trust mask of a loaded ensemble and a description of the criterion used.
+
+    With convergence data the mask of the convergence study is used for every probe; ``probe`` (the one
+    being analysed) only enters the description, which says when the study was made with another probe.
 
     Returns
     -------
@@ -793,10 +798,14 @@ def trust_mask(ens, use_trust: bool = True, max_discarded: float = DEFAULT_MAX_D
         if m.shape != (n_t, L):
             raise InputError(f"the convergence mask has shape {m.shape} but the ensemble has (n_t, L) = "
                              f"{(n_t, L)}; rerun 'fronts converge' on this run description")
-        chis = list(conv.get("chis", []))
+        chis = [int(c) for c in np.asarray(conv.get("chis", [])).reshape(-1)]
+        cprobe = conv.get("probe")
+        other = (f" (study made with probe {cprobe}, applied to probe {probe.upper()})"
+                 if cprobe and probe and str(cprobe).upper() != probe.upper() else "")
         info = {"source": "convergence",
                 "criterion": f"max |dC| between chi = {chis[-2] if len(chis) > 1 else '?'} and "
-                             f"{chis[-1] if chis else '?'} below tol = {float(conv.get('tol', float('nan'))):g}"}
+                             f"{chis[-1] if chis else '?'} below tol = {float(conv.get('tol', float('nan'))):g}"
+                             + other}
         mask = m[None]
     else:
         mask = trust_from_discarded(ens.discarded_weight, L, max_discarded)
@@ -811,16 +820,16 @@ def trust_mask(ens, use_trust: bool = True, max_discarded: float = DEFAULT_MAX_D
 
 # ------------------------------------------------------------------------------------------ ensemble wrappers
 def _probe_otoc(ens, probe: str) -> np.ndarray:
-    probes = [p.upper() for p in getattr(ens, "probes", ("X", "Y", "Z"))]
-    if not isinstance(probe, str) or probe.upper() not in probes:
-        raise InputError(f"probe must be one of {', '.join(probes)} (the probes stored in this run), got {probe!r}")
-    return np.asarray(ens.otoc(probe.upper()), dtype=float)
+    if not isinstance(probe, str) or probe.upper() not in ("X", "Y", "Z"):
+        stored = ", ".join(getattr(ens, "probes", ()))
+        raise InputError(f"probe must be one of 'X', 'Y', 'Z' (this run stores {stored}), got {probe!r}")
+    return np.asarray(ens.otoc(probe.upper()), dtype=float)  # the ensemble says if it cannot provide it
 
 
 def ensemble_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, use_trust: bool = True,
                         max_discarded: float = DEFAULT_MAX_DISCARDED, **opts) -> dict[str, Any]:
     """:func:`light_cone` of a loaded ensemble, with its trust mask; ``out['trust']`` describes the mask."""
-    mask, info = trust_mask(ens, use_trust, max_discarded)
+    mask, info = trust_mask(ens, use_trust, max_discarded, probe if isinstance(probe, str) else None)
     out = light_cone(ens.times, _probe_otoc(ens, probe), int(ens.site), threshold, trusted=mask, **opts)
     out["trust"] = info
     out["probe"] = probe.upper()
@@ -1040,8 +1049,9 @@ def format_summary(d: Mapping[str, Any]) -> str:
         f"{_fmt(d.get('largest_bond'))}",
     ]
     dist = d.get("distribution") or {}
-    lines.append(f"bimodality at r = {dist.get('r')} (d = {dist.get('d')}): max {_fmt(dist.get('max_bimodality'), '.3f')} "
-                 f"at t = {_fmt(dist.get('t_at_max'), '.3g')} (Sarle's coefficient, > 5/9 suggests two modes)")
+    lines.append(f"bimodality at r = {dist.get('r')} (d = {dist.get('d')}): max "
+                 f"{_fmt(dist.get('max_bimodality'), '.3f')} at t = {_fmt(dist.get('t_at_max'), '.3g')} "
+                 "(Sarle's coefficient, > 5/9 suggests two modes)")
     eng = d.get("engine") or {}
     if eng:
         lines.append("engine: " + ", ".join(f"{k} = {v}" for k, v in eng.items()))

@@ -70,7 +70,11 @@ def _positive_times(t: np.ndarray) -> np.ndarray:
 
 def _title(ens, probe: str | None) -> str:
     desc = getattr(ens, "description", {}) or {}
-    model = desc.get("kind") or desc.get("model") or ""
+    m = desc.get("model")
+    params = m if isinstance(m, dict) else desc
+    model = getattr(ens, "model", None) or params.get("kind") or (m if isinstance(m, str) else "")
+    if isinstance(params.get("W"), (int, float)):
+        model = f"{model} (disorder W = {params['W']:g})"
     R = len(ens.realizations)
     w = getattr(ens, "w", "W")
     v = f", V = {probe}" if probe else ""
@@ -242,7 +246,8 @@ def plot_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, lc: dict |
 def plot_convergence(ens, threshold: float = 0.5, probe: str = "Z"):
     """Largest |dC| between successive bond dimensions at, ahead of and behind the threshold contour.
 
-    The contour is that of the ensemble-mean C of the main run; the points compared are those of the side of
+    The changes are those of the probe of the convergence study (``probe`` is used only if the study does not
+    name one); the contour is that of the ensemble-mean C of the loaded run for the same probe, on the side of
     W used for the light cone. The dotted line is the tolerance of the trust mask.
     """
     conv = getattr(ens, "convergence", None)
@@ -250,8 +255,9 @@ def plot_convergence(ens, threshold: float = 0.5, probe: str = "Z"):
         raise InputError("this ensemble has no bond-dimension convergence data; run 'fronts converge' first "
                          "(or leave the 'convergence' figure out)")
     theta = an._check_threshold(threshold)
+    probe = str(conv.get("probe") or probe)  # the changes were measured with the probe of the study
     C = an._probe_otoc(ens, probe)
-    chis = list(conv["chis"])
+    chis = [int(c) for c in np.asarray(conv["chis"]).reshape(-1)]
     dC = np.asarray(conv["max_dC"], dtype=float)
     cols, _, side = an.one_side(C.shape[2], int(ens.site))
     regions = an.front_sites(C.mean(axis=0)[:, cols], theta)

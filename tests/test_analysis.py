@@ -287,9 +287,8 @@ def test_bad_arguments_name_themselves():
     with pytest.raises(InputError, match="times"):
         an.light_cone(t[:-1], C, 2)
     ens = fake_ensemble(t, C, 2)
-    ens.probes = ("Z",)
     with pytest.raises(InputError, match="probe"):
-        an.summarize(ens, probe="X")
+        an.summarize(ens, probe="Q")
 
 
 # ------------------------------------------------------------------------------------------ physics
