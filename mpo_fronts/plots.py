@@ -341,7 +341,8 @@ def _check_only(only) -> list[str]:
 
 def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshold: float = 0.5, probe: str = "Z",
                   formats: Sequence[str] = ("png", "pdf"), *, r: int | None = None, dpi: int = 150,
-                  n_boot: int = 500, seed: int = 0) -> list[Path]:
+                  n_boot: int = 500, seed: int = 0, use_trust: bool = True,
+                  max_discarded: float = an.DEFAULT_MAX_DISCARDED) -> list[Path]:
     """Write the figures of a loaded ensemble to ``outdir``, one file per figure and format.
 
     Parameters
@@ -359,6 +360,12 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
     formats : sequence of {'png', 'pdf', 'svg'}
     r : int, optional
         Probe site of the distribution figure (default halfway along the longer side of W).
+    dpi : int
+        Resolution of PNG files.
+    n_boot, seed
+        Bootstrap of the light-cone and width fits (see :func:`mpo_fronts.analysis.light_cone`).
+    use_trust, max_discarded
+        Trust mask as in :func:`mpo_fronts.analysis.summarize` (False: every point is used and nothing hatched).
 
     Returns
     -------
@@ -383,16 +390,17 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
     written: list[Path] = []
     for name in names:
         if name == "heatmap":
-            fig = plot_heatmap(ens, threshold, probe)
+            fig = plot_heatmap(ens, threshold, probe, use_trust=use_trust, max_discarded=max_discarded)
         elif name == "distribution":
             fig = plot_distribution(ens, r=r, probe=probe)
         elif name == "light_cone":
-            lc = lc or an.ensemble_light_cone(ens, threshold, probe, n_boot=n_boot, seed=seed)
+            lc = lc or an.ensemble_light_cone(ens, threshold, probe, n_boot=n_boot, seed=seed, use_trust=use_trust,
+                                              max_discarded=max_discarded)
             fig = plot_light_cone(ens, threshold, probe, lc=lc)
         elif name == "convergence":
             fig = plot_convergence(ens, threshold, probe)
         else:
-            fig = plot_front(ens, n_boot=n_boot, seed=seed)
+            fig = plot_front(ens, n_boot=n_boot, seed=seed, use_trust=use_trust, max_discarded=max_discarded)
         for fmt in fmts:
             path = out / f"{name}.{fmt}"
             fig.savefig(path, dpi=dpi, metadata=_metadata(fmt))
