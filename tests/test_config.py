@@ -1,0 +1,240 @@
+"""Run descriptions: parsing, defaults, validation messages, the per-realization random-number scheme."""
+
+import copy
+import json
+import pickle
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from mpo_fronts.config import SCHEMA, parse_description, read_description, realization_rng
+from mpo_fronts.errors import ConfigError
+
+DATA = Path(__file__).resolve().parent.parent / "data"
+
+BASE = {
+    "model": {"kind": "xxz", "L": 8, "J": 1.0, "delta": 1.0, "W": 2.0},
+    "operators": {"w": "Z", "site": 0, "v": ["X", "Z"]},
+    "times": {"values": [0.5, 1.0, 2.0]},
+    "engine": {"chi": 16, "dt": 0.05, "order": 2, "cutoff": 1e-12},
+    "ensemble": {"realizations": 4, "seed": 20261201},
+}
+
+
+def base(**changes):
+    """BASE with some keys changed: table__key=value (value None deletes the key)."""
+    d = copy.deepcopy(BASE)
+    for name, value in changes.items():
+        table, _, key = name.partition("__")
+        d.setdefault(table, {})
+        if value is None:
+            d[table].pop(key, None)
+        else:
+            d[table][key] = value
+    return d
+
+
+@pytest.mark.parametrize("name", sorted(p.name for p in DATA.glob("*.toml")))
+def test_data_files_parse_and_round_trip(name):
+    desc = read_description(DATA / name)
+    again = parse_description(desc.to_dict())
+    assert again == desc
+    assert again.fingerprint() == desc.fingerprint()
+    # through JSON too (run.json stores the resolved description this way)
+    assert parse_description(json.loads(json.dumps(desc.to_dict()))) == desc
+
+
+def test_defaults_are_resolved():
+    desc = parse_description({"model": {"kind": "xxz", "L": 6}, "times": {"values": [1.0]}})
+    d = desc.to_dict()
+    assert d["model"] == {"kind": "xxz", "L": 6, "J": 1.0, "delta": 1.0, "W": 0.0}
+    assert d["operators"] == {"w": "Z", "site": 0, "v": ["X", "Y", "Z"]}
+    assert d["state"] == {"kind": "infinite_temperature"}
+    assert d["engine"] == {"chi": 64, "dt": 0.05, "order": 2, "cutoff": 0.0, "chunk": 20}
+    assert d["ensemble"] == {"realizations": 1, "seed": 0}
+    assert d["run"]["checkpoints"] is True and d["run"]["checkpoint_interval"] > 0
+    ising = parse_description({"model": {"kind": "mixed_field_ising", "L": 6}, "times": {"values": [1.0]}})
+    # the standard chaotic point of Banuls, Cirac, Hastings, PRL 106, 050405 (2011) is the default
+    assert ising["model"] == {"kind": "mixed_field_ising", "L": 6, "J": 1.0, "g": 1.05, "h": 0.5}
+
+
+def test_time_grid_matches_numpy():
+    desc = parse_description(base(times__values=None, times__start=0.1, times__stop=100.0, times__num=7))
+    np.testing.assert_array_equal(desc.times, np.geomspace(0.1, 100.0, 7))  # reference: numpy.geomspace
+    lin = parse_description(base(times__values=None, times__start=0.0, times__stop=2.0, times__num=5,
+                                 times__spacing="linear"))
+    np.testing.assert_array_equal(lin.times, np.linspace(0.0, 2.0, 5))
+
+
+def test_site_center_and_probes():
+    desc = parse_description(base(operators__site="center", operators__v="Y"))
+    assert desc.site == 4 and desc.probes == ("Y",)
+    assert desc.site_at(5) == 2
+
+
+# (description changes, key path the error must name)
+MALFORMED = [
+    (dict(engine__chi=0), "engine.chi"),
+    (dict(engine__chi=16.5), "engine.chi"),
+    (dict(engine__chi="64"), "engine.chi"),
+    (dict(engine__dt=-0.1), "engine.dt"),
+    (dict(engine__order=3), "engine.order"),
+    (dict(engine__cutoff=1.5), "engine.cutoff"),
+    (dict(engine__chunk=0), "engine.chunk"),
+    (dict(engine__cutof=1e-12), "engine.cutof"),
+    (dict(model__kind="heisenberg"), "model.kind"),
+    (dict(model__kind=None), "model.kind"),
+    (dict(model__L=1), "model.L"),
+    (dict(model__L=True), "model.L"),
+    (dict(model__W=-1.0), "model.W"),
+    (dict(model__fields=[0.0] * 8), "model.fields"),  # together with W
+    (dict(model__W=None, model__fields=[0.0] * 7), "model.fields"),
+    (dict(model__W=None, model__fields=[[0.0] * 8] * 3), "model.fields"),  # 3 lists, 4 realizations
+    (dict(model__couplings=[1.0] * 8), "model.couplings"),
+    (dict(model__g=1.0), "model.g"),  # not an XXZ parameter
+    (dict(model__chi=32), "model.chi"),
+    (dict(operators__site=8), "operators.site"),
+    (dict(operators__site=-1), "operators.site"),
+    (dict(operators__site="middle"), "operators.site"),
+    (dict(operators__w="Q"), "operators.w"),
+    (dict(operators__v=["X", "X"]), "operators.v"),
+    (dict(operators__v=[]), "operators.v"),
+    (dict(state__kind="thermal"), "state.kind"),
+    (dict(state__kind="product"), "state.bits"),
+    (dict(state__kind="product", state__bits="0101"), "state.bits"),
+    (dict(state__kind="product", state__bits="01012101"), "state.bits"),
+    (dict(state__kind="random_product", state__samples=0), "state.samples"),
+    (dict(state__samples=3), "state.samples"),
+    (dict(times__values=[1.0, 0.5]), "times.values"),
+    (dict(times__values=[1.0, 1.0]), "times.values"),
+    (dict(times__values=[-1.0, 0.5]), "times.values"),
+    (dict(times__values=[]), "times.values"),
+    (dict(times__start=0.1), "times.start"),
+    (dict(times__values=None, times__start=0.0, times__stop=1.0, times__num=4), "times.start"),
+    (dict(times__values=None, times__start=1.0, times__stop=0.5, times__num=4), "times.stop"),
+    (dict(times__values=None, times__start=1.0, times__stop=2.0, times__num=0), "times.num"),
+    (dict(times__values=None, times__start=1.0, times__stop=2.0, times__num=3, times__spacing="geometric"),
+     "times.spacing"),
+    (dict(ensemble__realizations=0), "ensemble.realizations"),
+    (dict(ensemble__realizations=None), "ensemble.realizations"),  # random model needs a count
+    (dict(ensemble__seed=-5), "ensemble.seed"),
+    (dict(ensemble__seeds=3), "ensemble.seeds"),
+    (dict(model__W=0.0), "ensemble.realizations"),  # 4 identical realizations
+    (dict(run__checkpoint_interval=0), "run.checkpoint_interval"),
+    (dict(run__claim_timeout=1), "run.claim_timeout"),
+    (dict(run__checkpoints="yes"), "run.checkpoints"),
+]
+
+
+@pytest.mark.parametrize("changes,key", MALFORMED, ids=[f"{k}-{i}" for i, (_, k) in enumerate(MALFORMED)])
+def test_malformed_descriptions_name_the_key(changes, key):
+    with pytest.raises(ConfigError) as info:
+        parse_description(base(**changes))
+    assert info.value.key == key
+    assert str(info.value).startswith(key + ":")
+
+
+@pytest.mark.parametrize("raw,key,hint", [
+    (base(engine__cutof=1e-12), "engine.cutof", "did you mean 'cutoff'"),
+    (base(model__dleta=1.0), "model.dleta", "did you mean 'delta'"),
+    (base(model__chi=8), "model.chi", "engine.chi"),
+    ({**base(), "engin": {"chi": 4}}, "engin", "did you mean 'engine'"),
+    (base(model__kind="xzz"), "model.kind", "did you mean 'xxz'"),
+])
+def test_typos_get_the_closest_valid_key(raw, key, hint):
+    with pytest.raises(ConfigError) as info:
+        parse_description(raw)
+    assert info.value.key == key and hint in str(info.value)
+
+
+def test_missing_tables_and_bad_files(tmp_path):
+    with pytest.raises(ConfigError) as info:
+        parse_description({"model": {"kind": "xxz", "L": 4}})
+    assert info.value.key == "times"
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[model]\nkind = xxz\n")  # unquoted string: not TOML
+    with pytest.raises(ConfigError, match="not valid TOML"):
+        read_description(bad)
+    with pytest.raises(ConfigError, match="no such run description"):
+        read_description(tmp_path / "absent.toml")
+
+
+def test_config_error_pickles():
+    err = ConfigError("engine.chi", "expected a positive integer")
+    again = pickle.loads(pickle.dumps(err))
+    assert isinstance(again, ConfigError) and again.key == "engine.chi" and str(again) == str(err)
+
+
+def test_schema_lists_every_key_the_parser_reads():
+    # every key of the schema is accepted somewhere (no dead entries)
+    assert set(SCHEMA) == {"model", "operators", "state", "times", "engine", "ensemble", "run"}
+    desc = parse_description(base(run__label="x", run__checkpoints=False, run__checkpoint_interval=5.0,
+                                  run__claim_timeout=60.0, engine__chunk=3))
+    assert desc.run_options == {"label": "x", "checkpoints": False, "checkpoint_interval": 5.0,
+                                "claim_timeout": 60.0}
+
+
+def test_realization_fields_follow_the_documented_seed_scheme():
+    desc = parse_description(base())
+    for k in (0, 3):
+        # reference: numpy's generator seeded as documented, independent of the package
+        ref = np.random.default_rng(np.random.SeedSequence([k, 20261201])).uniform(-2.0, 2.0, size=8)
+        np.testing.assert_array_equal(desc.realization(k).chain.fields, ref)
+    # independent of which other realizations exist, and of their order
+    more = parse_description(base(ensemble__realizations=40))
+    np.testing.assert_array_equal(more.realization(3).chain.fields, desc.realization(3).chain.fields)
+    assert not np.array_equal(desc.realization(0).fields, desc.realization(1).fields)
+
+
+def test_random_product_bits_come_after_the_fields():
+    desc = parse_description(base(state__kind="random_product", state__samples=3))
+    rng = np.random.default_rng(np.random.SeedSequence([2, 20261201]))
+    fields = rng.uniform(-2.0, 2.0, size=8)
+    bits = ["".join("01"[b] for b in row) for row in rng.integers(0, 2, size=(3, 8))]
+    real = desc.realization(2)
+    np.testing.assert_array_equal(real.fields, fields)
+    assert list(real.bits) == bits
+    assert realization_rng(2, 20261201).uniform() == np.random.default_rng(
+        np.random.SeedSequence([2, 20261201])).uniform()
+
+
+def test_explicit_fields_per_realization_and_couplings():
+    fields = [[0.1 * i + j for i in range(8)] for j in range(3)]
+    desc = parse_description(base(model__W=None, model__fields=fields, ensemble__realizations=None,
+                                  model__couplings=[1.0, 0.9, 1.1, 1.0, 0.8, 1.2, 1.0]))
+    assert desc.realizations == 3
+    np.testing.assert_array_equal(desc.realization(2).fields, fields[2])
+    np.testing.assert_array_equal(desc.realization(1).couplings, [1.0, 0.9, 1.1, 1.0, 0.8, 1.2, 1.0])
+    shared = parse_description(base(model__W=None, model__fields=[0.5] * 8, ensemble__realizations=1))
+    np.testing.assert_array_equal(shared.realization(0).fields, [0.5] * 8)
+
+
+def test_ising_realization_has_no_fields():
+    desc = parse_description({"model": {"kind": "mixed_field_ising", "L": 5, "g": 0.9},
+                              "times": {"values": [1.0]}})
+    real = desc.realization(0)
+    assert np.all(np.isnan(real.fields)) and real.chain.kind == "mixed_field_ising"
+    np.testing.assert_array_equal(real.couplings, np.ones(4))
+
+
+def test_fingerprint_ignores_how_not_what():
+    a = parse_description(base())
+    assert a.fingerprint() == parse_description(base(run__checkpoint_interval=7.0)).fingerprint()
+    assert a.fingerprint() == parse_description(base(ensemble__realizations=9)).fingerprint()
+    assert a.fingerprint() != parse_description(base(engine__chi=17)).fingerprint()
+    assert a.fingerprint() != parse_description(base(ensemble__seed=1)).fingerprint()
+
+
+def test_replace_revalidates():
+    a = parse_description(base())
+    assert a.replace(engine__chi=8).engine["chi"] == 8
+    with pytest.raises(ConfigError, match="engine.chi"):
+        a.replace(engine__chi=-1)
+
+
+def test_truncated_realization_keeps_the_first_sites():
+    desc = parse_description(base(state__kind="random_product", state__samples=2))
+    full, small = desc.realization(1), desc.truncated_realization(1, 5)
+    np.testing.assert_array_equal(small.fields, full.fields[:5])
+    assert small.bits == tuple(b[:5] for b in full.bits) and small.chain.L == 5

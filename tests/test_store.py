@@ -1,0 +1,234 @@
+"""Run directories: atomic files, claims, description checks, checkpoints, loading and merging."""
+
+import json
+import os
+import socket
+import subprocess
+import sys
+import time
+
+import h5py
+import numpy as np
+import pytest
+
+import mpo_fronts as mf
+from mpo_fronts.config import parse_description
+from mpo_fronts.ensemble import run_ensemble
+from mpo_fronts.errors import MissingDependencyError, RunDirectoryError
+from mpo_fronts.evolve import OperatorTEBD
+from mpo_fronts.store import Claim, ClaimInfo, RunDirectory, atomic_h5, load, merge, run_status
+
+RAW = {
+    "model": {"kind": "xxz", "L": 6, "W": 1.5},
+    "operators": {"w": "Z", "site": 1, "v": ["X", "Z"]},
+    "times": {"values": [0.4, 1.0]},
+    "engine": {"chi": 8, "dt": 0.1},
+    "ensemble": {"realizations": 3, "seed": 11},
+}
+
+
+def desc(**changes):
+    d = parse_description(RAW)
+    return d.replace(**changes) if changes else d
+
+
+def test_atomic_h5_leaves_nothing_when_the_writer_fails(tmp_path):
+    target = tmp_path / "r.h5"
+
+    def bad(f):
+        f.create_dataset("x", data=np.arange(3))
+        raise RuntimeError("killed mid-write")
+
+    with pytest.raises(RuntimeError):
+        atomic_h5(target, bad)
+    assert list(tmp_path.iterdir()) == []
+    atomic_h5(target, lambda f: f.create_dataset("x", data=np.arange(3)))
+    with h5py.File(target) as f:
+        np.testing.assert_array_equal(f["x"][()], np.arange(3))
+    assert [p.name for p in tmp_path.iterdir()] == ["r.h5"]
+
+
+def test_create_refuses_other_descriptions_and_foreign_directories(tmp_path):
+    run = tmp_path / "run"
+    RunDirectory.create(run, desc())
+    before = (run / "run.json").read_bytes()
+    with pytest.raises(RunDirectoryError, match="engine.chi: stored 8, given 9"):
+        RunDirectory.create(run, desc(engine__chi=9))
+    assert (run / "run.json").read_bytes() == before  # nothing overwritten
+    RunDirectory.create(run, desc(run__checkpoint_interval=5.0))  # how, not what: accepted
+    foreign = tmp_path / "foreign"
+    foreign.mkdir()
+    (foreign / "notes.txt").write_text("mine")
+    with pytest.raises(RunDirectoryError, match="not a run directory"):
+        RunDirectory.create(foreign, desc())
+    assert sorted(p.name for p in foreign.iterdir()) == ["notes.txt"]
+    (tmp_path / "file").write_text("")
+    with pytest.raises(RunDirectoryError, match="not a directory"):
+        RunDirectory.create(tmp_path / "file", desc())
+
+
+def test_more_realizations_extend_the_directory(tmp_path):
+    RunDirectory.create(tmp_path / "r", desc())
+    rd = RunDirectory.create(tmp_path / "r", desc(ensemble__realizations=5))
+    assert json.loads((tmp_path / "r" / "run.json").read_text())["description"]["ensemble"]["realizations"] == 5
+    rd = RunDirectory.create(tmp_path / "r", desc(ensemble__realizations=2))  # fewer: the record keeps 5
+    assert rd.description.realizations == 5
+
+
+def test_claims(tmp_path):
+    rd = RunDirectory.create(tmp_path / "r", desc())
+    c = rd.claim(0, "run-a")
+    assert isinstance(c, Claim) and rd.claim_path(0).is_file()
+    other = rd.claim(0, "run-b")
+    assert isinstance(other, ClaimInfo) and other.pid == os.getpid() and other.run_id == "run-a"
+    # the same run takes over (a task retried after its worker died)
+    c2 = rd.claim(0, "run-a")
+    assert isinstance(c2, Claim)
+    c.release()  # the replaced claim must not remove its successor's file
+    assert rd.claim_path(0).is_file()
+    c2.release()
+    assert not rd.claim_path(0).exists()
+
+    # a claim of a dead process on this host is stale at once
+    proc = subprocess.Popen([sys.executable, "-c", "pass"])
+    proc.wait()
+    rd.claim_path(1).write_text(json.dumps({"k": 1, "host": socket.gethostname(), "pid": proc.pid,
+                                            "run_id": "dead", "started": time.time(), "t": 0.3}))
+    c3 = rd.claim(1, "run-b")
+    assert isinstance(c3, Claim)
+    c3.release()
+    # a claim from another host goes stale when its heartbeat is older than run.claim_timeout
+    path = rd.claim_path(2)
+    path.write_text(json.dumps({"k": 2, "host": "elsewhere.invalid", "pid": 1, "run_id": "far",
+                                "started": time.time(), "t": 0.0}))
+    assert isinstance(rd.claim(2, "run-b"), ClaimInfo)
+    old = time.time() - rd.description.run_options["claim_timeout"] - 5
+    os.utime(path, (old, old))
+    c4 = rd.claim(2, "run-b")
+    assert isinstance(c4, Claim)
+    c4.release()
+
+
+def test_claim_heartbeat_refreshes_the_file(tmp_path, monkeypatch):
+    monkeypatch.setattr(Claim, "HEARTBEAT_S", 0.05)
+    rd = RunDirectory.create(tmp_path / "r", desc())
+    c = rd.claim(0, "a")
+    old = time.time() - 1000
+    os.utime(rd.claim_path(0), (old, old))
+    c.progress(0.75)
+    time.sleep(0.4)
+    info = rd.claim_infos()[0]
+    assert time.time() - info.heartbeat < 100 and info.t == 0.75
+    c.release()
+
+
+def test_checkpoint_round_trip_is_exact(tmp_path):
+    d = desc(engine__chunk=2)
+    rd = RunDirectory.create(tmp_path / "r", d)
+    chain = d.realization(0).chain
+    ts = [0.3, 0.6, 1.0]
+    full = OperatorTEBD(chain, "Z", 1, chi=8, dt=0.1, chunk=2)
+    for _ in full.run(ts):
+        pass
+    part = OperatorTEBD(chain, "Z", 1, chi=8, dt=0.1, chunk=2)
+    run = part.run(ts)
+    next(run)  # stop after the first output
+    outputs = {"weights": np.random.default_rng(0).random((3, 6, 4)), "state_otoc": {"Z": np.ones((2, 3, 6))}}
+    rd.save_checkpoint(0, part.state_dict(), outputs, n_done=1, wall_time=1.5, restarts=0)
+    ck = rd.load_checkpoint(0)
+    state = part.state_dict()
+    assert ck["n_done"] == 1 and ck["wall_time"] == 1.5
+    for A, B in zip(ck["state"]["arrays"], state["arrays"]):
+        np.testing.assert_array_equal(A, B)
+    np.testing.assert_array_equal(ck["outputs"]["weights"], outputs["weights"][:1])
+    assert ck["outputs"]["state_otoc"]["Z"].shape == (2, 1, 6)
+    resumed = OperatorTEBD(chain, "Z", 1, chi=8, dt=0.1, chunk=2)
+    resumed.load_state_dict(ck["state"])
+    for _ in resumed.run(ts):
+        pass
+    for A, B in zip(resumed.arrays, full.arrays):
+        np.testing.assert_allclose(A, B, rtol=0, atol=1e-12)
+    # a checkpoint of another description is ignored
+    other = RunDirectory(tmp_path / "r", desc(engine__chi=7))
+    assert other.load_checkpoint(0) is None
+
+
+@pytest.fixture(scope="module")
+def small_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("store") / "run"
+    run_ensemble(desc(), out, progress="none")
+    return out
+
+
+def test_load_directory_and_merged_file_agree(small_run, tmp_path):
+    ens = load(small_run)
+    assert ens.otoc("X").shape == (3, 2, 6) and ens.weights.shape == (3, 2, 6, 4)
+    assert ens.fields.shape == (3, 6) and ens.discarded_weight.shape == (3, 2) and ens.max_bond.shape == (3, 2)
+    assert ens.site == 1 and ens.w == "Z" and ens.probes == ("X", "Z") and ens.L == 6
+    np.testing.assert_array_equal(ens.realizations, [0, 1, 2])
+    np.testing.assert_array_equal(ens.seeds, [[0, 11], [1, 11], [2, 11]])
+    assert ens.engine["order"] == 2 and 0 < ens.engine["max_step"] <= 0.1 and ens.missing == []
+    assert np.all(ens.wall_time > 0)
+    # fields are the documented draws: numpy's generator seeded with SeedSequence([k, seed])
+    for i, k in enumerate(ens.realizations):
+        ref = np.random.default_rng(np.random.SeedSequence([int(k), 11])).uniform(-1.5, 1.5, 6)
+        np.testing.assert_array_equal(ens.fields[i], ref)
+    # Y is not stored, but at infinite temperature it follows from the weights
+    assert ens.otoc("Y").shape == (3, 2, 6)
+    path, merged = merge([small_run], tmp_path / "all.h5")
+    again = mf.load(path)
+    for name in ("weights", "right_weight", "discarded_weight", "max_bond", "fields", "couplings", "seeds",
+                 "wall_time"):
+        np.testing.assert_array_equal(getattr(again, name), getattr(ens, name))
+    np.testing.assert_array_equal(again.otoc("X"), ens.otoc("X"))
+    assert again.description == ens.description and again.engine == ens.engine
+    with h5py.File(path) as f:
+        assert f.attrs["conventions"] == mf.CONVENTIONS and f.attrs["version"] == mf.__version__
+    with pytest.raises(RunDirectoryError, match="exists"):
+        merge([small_run], path)
+
+
+def test_result_file_contents(small_run):
+    with h5py.File(small_run / "realizations" / "r00001.h5") as f:
+        assert json.loads(f.attrs["description"]) == json.loads((small_run / "run.json").read_text())["description"]
+        eng = json.loads(f.attrs["engine"])
+        assert eng["chi"] == 8 and eng["order"] == 2 and eng["dt"] == 0.1 and eng["max_step"] <= 0.1
+        assert f.attrs["conventions"] == mf.CONVENTIONS
+        np.testing.assert_array_equal(f["seed"][()], [1, 11])
+        assert set(f["otoc"]) == {"X", "Z"} and f["couplings"].shape == (5,)
+        assert float(f["wall_time"][()]) > 0
+
+
+def test_status_of_a_partial_run(small_run, tmp_path):
+    st = run_status(small_run)
+    assert st["done"] == [0, 1, 2] and st["missing"] == [] and st["max_bond"] <= 8
+    out = tmp_path / "partial"
+    run_ensemble(desc(), out, realizations=[1], progress="none")
+    st = run_status(out)
+    assert st["done"] == [1] and st["missing"] == [0, 2]
+    ens = load(out)
+    assert ens.missing == [0, 2] and ens.otoc("Z").shape == (1, 2, 6)
+
+
+def test_to_xarray(small_run):
+    ens = load(small_run)
+    try:
+        import xarray  # noqa: F401
+    except ImportError:
+        with pytest.raises(MissingDependencyError, match="pip install"):
+            ens.to_xarray()
+    else:
+        ds = ens.to_xarray()
+        np.testing.assert_array_equal(ds["otoc_X"].values, ens.otoc("X"))
+        assert ds.sizes["realization"] == 3
+
+
+def test_load_errors(tmp_path):
+    with pytest.raises(RunDirectoryError, match="no such"):
+        load(tmp_path / "nothing")
+    (tmp_path / "empty").mkdir()
+    with pytest.raises(RunDirectoryError, match="not a run directory"):
+        load(tmp_path / "empty")
+    (tmp_path / "x.h5").write_bytes(b"not hdf5")
+    with pytest.raises(RunDirectoryError, match="cannot read"):
+        load(tmp_path / "x.h5")
