@@ -110,6 +110,10 @@ def test_ballistic_front_gives_velocity_inside_interval():
     # the data are ballistic: the ballistic law leaves the smaller residuals in ln t
     assert f["rms_log_residual"] < lc["fits"]["log"]["rms_log_residual"]
     assert len(f["residuals"]) == f["n_points"] == len(f["distances"])
+    # the median and typical curves cross 1/2 at d / v + t0 + const (the same shift at every d): same v_B
+    for curve in ("median", "typical"):
+        g = an.light_cone(t, C, 2, 0.5, curve=curve, n_boot=100, seed=3)["fits"]["ballistic"]
+        assert g["ci_low"] - 0.01 <= v_true <= g["ci_high"] + 0.01, curve
     # seeded bootstrap: reproducible
     again = an.light_cone(t, C, 2, 0.5, n_boot=400, seed=3)["fits"]["ballistic"]
     assert (again["ci_low"], again["ci_high"]) == (f["ci_low"], f["ci_high"])
