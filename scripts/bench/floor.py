@@ -1,0 +1,212 @@
+"""Benchmark 2: the engine against its own floor, the dense SVDs it cannot avoid.
+
+Usage:  python scripts/bench/floor.py [--L 32] [--chis 32 64 128] [--t0 4] [--steps 5] [--no-e2e]
+
+For each chain (mixed-field Ising; random-field Heisenberg W = 1, graded and ungraded) and chi, the engine
+(W = Z at the centre, dt = 0.05, order 2) is evolved to t0, where the central bonds sit at chi; then the wall
+time of single Trotter steps is measured (median of --steps) and compared with the floor: the sum, over the
+gates of one step, of the time numpy.linalg.svd (gesdd) takes on the very matrices the engine decomposes
+(captured during one extra step; in the graded engine these are the Z2 blocks). The same captured matrices are
+also decomposed with cheaper truncations (scipy gesvd, quimb's svd_via_eig Gram-matrix route and its randomized
+svd_rand_truncated, both limited to chi), with their error against the optimal rank-k truncation.
+An end-to-end check (unless --no-e2e) runs the ungraded engine with each alternative plugged in at
+L = 32, chi = 64, t = 4 and reports max |dC| against the gesdd engine. Writes data/benchmarks/floor.json.
+Single BLAS thread (set OPENBLAS_NUM_THREADS to override). A benchmark, not a test.
+"""
+
+from __future__ import annotations
+
+import os
+
+for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "NUMBA_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
+import argparse  # noqa: E402
+import sys  # noqa: E402
+import time  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+import numpy as np  # noqa: E402
+import scipy.linalg  # noqa: E402
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+import mpo_fronts as mf  # noqa: E402
+import mpo_fronts.evolve as ev  # noqa: E402
+from common import limit_blas, table, write_json  # noqa: E402
+
+OVERSAMPLE = 10
+
+
+# ------------------------------------------------------------------------------------------ decompositions
+def _gesdd(m, chi):
+    return np.linalg.svd(m, full_matrices=False)
+
+
+def _gesvd(m, chi):
+    return scipy.linalg.svd(m, full_matrices=False, lapack_driver="gesvd", check_finite=False)
+
+
+def _eig(m, chi):
+    from quimb.tensor.decomp import svd_via_eig
+
+    return svd_via_eig(m, absorb=None, max_bond=min(chi + OVERSAMPLE, min(m.shape)))
+
+
+def _rand(m, chi):
+    from quimb.tensor.decomp import svd_rand_truncated
+
+    k = chi + OVERSAMPLE
+    if min(m.shape) <= 2 * k:  # nothing to gain from a projection: exact SVD
+        return np.linalg.svd(m, full_matrices=False)
+    return svd_rand_truncated(m, k, absorb=None, oversample=OVERSAMPLE, num_iterations=2, seed=0)
+
+
+METHODS = {"gesdd": _gesdd, "gesvd": _gesvd, "eig (quimb svd_via_eig)": _eig, "randomized (quimb rsvd)": _rand}
+
+
+def _with_tail(fn, chi):
+    """An engine-compatible _svd: the method's factors plus one entry carrying the weight it did not return,
+    so that the engine's ledger (sum of dropped s^2) stays the exact norm loss."""
+    def svd(m):
+        u, s, vt = fn(m, chi)
+        rest = max(float(np.sum(m * m)) - float(np.sum(s * s)), 0.0)
+        if s.size < min(m.shape) and rest > 0:
+            s = np.append(s, np.sqrt(rest))
+            u = np.hstack([u, np.zeros((u.shape[0], 1))])
+            vt = np.vstack([vt, np.zeros((1, vt.shape[1]))])
+        return u, s, vt
+    return svd
+
+
+def time_call(fn, *args, repeat=3):
+    best = np.inf
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        fn(*args)
+        best = min(best, time.perf_counter() - t0)
+    return best
+
+
+# ------------------------------------------------------------------------------------------ measurement
+def measure(chain, chi, t0, steps, graded, dt=0.05):
+    eng = ev.OperatorTEBD(chain, w="Z", site=chain.L // 2, chi=chi, dt=dt, order=2, graded=graded)
+    times = t0 + dt * np.arange(steps + 2)
+    gen = eng.run(times)
+    next(gen)  # evolve to t0
+    step_times = []
+    for _ in range(steps):
+        t_a = time.perf_counter()
+        next(gen)
+        step_times.append(time.perf_counter() - t_a)
+    captured = []
+    original = ev._svd
+
+    def recorder(m):
+        captured.append(m.copy())
+        return original(m)
+
+    ev._svd = recorder
+    try:
+        next(gen)
+    finally:
+        ev._svd = original
+    keep = [min(chi, int(np.count_nonzero(s > ev.SVD_FLOOR * s[0]))) for s in
+            (np.linalg.svd(m, compute_uv=False) for m in captured)]
+    floors, errors = {}, {}
+    for name, fn in METHODS.items():
+        floors[name] = sum(time_call(fn, m, chi) for m in captured)
+        worst = 0.0
+        for m, k in zip(captured, keep):
+            s_opt = np.linalg.svd(m, compute_uv=False)
+            u, s, vt = fn(m, chi)
+            u, s, vt = u[:, :k], s[:k], vt[:k]
+            err = np.sum((m - (u * s) @ vt) ** 2)  # squared Frobenius error of the rank-k truncation
+            worst = max(worst, abs(err - np.sum(s_opt[k:] ** 2)))
+        errors[name] = worst
+    shapes = sorted({m.shape for m in captured})
+    return {"step_s": float(np.median(step_times)), "floor_s": floors, "extra_error": errors,
+            "n_svd": len(captured), "shapes": [list(s) for s in shapes[-3:]], "max_bond": eng.max_bond,
+            "discarded": eng.discarded_weight}
+
+
+def end_to_end(chain, chi, t, dt=0.05):
+    """Run the ungraded engine with each decomposition plugged in; C and time against gesdd."""
+    out = []
+    ref = None
+    original = ev._svd
+    times = [t / 4, t / 2, t]
+    for name, fn in METHODS.items():
+        ev._svd = _with_tail(fn, chi)
+        try:
+            t_a = time.perf_counter()
+            eng = ev.OperatorTEBD(chain, w="Z", site=chain.L // 2, chi=chi, dt=dt, order=2, graded=False)
+            res = {v: [] for v in "XZ"}
+            for k, e in eng.run(times):
+                w = mf.readout.pauli_weights(e.arrays, e.center)
+                for v in res:
+                    res[v].append(mf.readout.otoc_from_weights(w, v))
+            wall = time.perf_counter() - t_a
+        finally:
+            ev._svd = original
+        C = {v: np.array(x) for v, x in res.items()}
+        if ref is None:
+            ref, t_ref = C, wall
+        dC = max(np.abs(C[v] - ref[v]).max() for v in C)
+        # ahead of the front (C < 1e-6 in the reference) the relative error matters
+        tip = ref["Z"] < 1e-6
+        rel = float(np.max(np.abs(C["Z"][tip] - ref["Z"][tip]) / np.maximum(ref["Z"][tip], 1e-300))) if tip.any() else 0.0
+        out.append({"method": name, "wall_s": wall, "speedup": t_ref / wall, "max|dC|": dC,
+                    "max_rel_dC_ahead": rel, "discarded": eng.discarded_weight})
+    return out
+
+
+def main(argv=None) -> None:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--L", type=int, default=32)
+    ap.add_argument("--chis", type=int, nargs="+", default=[32, 64, 128])
+    ap.add_argument("--t0", type=float, default=4.0)
+    ap.add_argument("--steps", type=int, default=5)
+    ap.add_argument("--no-e2e", action="store_true")
+    args = ap.parse_args(argv)
+    import quimb.tensor  # noqa: F401 - load all BLAS users before limiting threads
+    _blas = limit_blas(int(os.environ["OPENBLAS_NUM_THREADS"]))  # noqa: F841
+
+    chains = [("mixed-field Ising", mf.mixed_field_ising_chain(args.L), False),
+              ("Heisenberg W=1 graded", mf.xxz_chain(args.L, W=1.0, seed=1), True),
+              ("Heisenberg W=1 ungraded", mf.xxz_chain(args.L, W=1.0, seed=1), False)]
+    rows = []
+    for label, chain, graded in chains:
+        for chi in args.chis:
+            m = measure(chain, chi, args.t0, args.steps, graded)
+            g = m["floor_s"]["gesdd"]
+            row = {"chain": label, "chi": chi, "max_bond": m["max_bond"], "n_svd": m["n_svd"],
+                   "step_s": m["step_s"], "svd_floor_s": g, "step/floor": m["step_s"] / g}
+            for name in METHODS:
+                if name != "gesdd":
+                    row[f"{name.split()[0]}/gesdd"] = m["floor_s"][name] / g
+                    row[f"{name.split()[0]}_err"] = m["extra_error"][name]
+            row["largest_shapes"] = m["shapes"]
+            rows.append(row)
+            print(f"{label}, chi {chi}: step {m['step_s'] * 1e3:.1f} ms, SVD floor {g * 1e3:.1f} ms, "
+                  f"ratio {m['step_s'] / g:.2f}", flush=True)
+    cols = ["chain", "chi", "max_bond", "n_svd", "step_s", "svd_floor_s", "step/floor", "gesvd/gesdd",
+            "eig/gesdd", "eig_err", "randomized/gesdd", "randomized_err"]
+    print()
+    print(f"one Trotter step at t0 = {args.t0}, L = {args.L} (floor: numpy gesdd on the captured matrices; "
+          "*_err: largest excess squared truncation error over the optimal rank-k truncation)")
+    print(table(rows, cols))
+    e2e = []
+    if not args.no_e2e:
+        for label, chain in (("mixed-field Ising", mf.mixed_field_ising_chain(args.L)),
+                             ("Heisenberg W=1", mf.xxz_chain(args.L, W=1.0, seed=1))):
+            for r in end_to_end(chain, 64, 4.0):
+                e2e.append({"chain": label, "chi": 64, **r})
+        print()
+        print("end to end, ungraded engine with each decomposition, L = 32, chi = 64, t = 1, 2, 4:")
+        print(table(e2e, ["chain", "method", "wall_s", "speedup", "max|dC|", "max_rel_dC_ahead", "discarded"]))
+    path = write_json("floor", {"settings": vars(args), "rows": rows, "end_to_end": e2e})
+    print(f"wrote {path}")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,77 @@
+"""Benchmark 1: the engine against a plain complex TEBD of the vectorised operator with quimb's TEBD class.
+
+Usage:  python scripts/bench/vs_tebd.py [--L 32] [--chis 32 64 128] [--t 4] [--dt 0.05] [--chains mfi heis]
+
+Same chain, times (t/4, t/2, t), Trotter order (2), step and truncation (at most chi values, relative floor
+1e-13) in both; W = Z at the centre. Chains: mixed-field Ising (J, g, h) = (1, 1.05, 0.5) and random-field
+Heisenberg W = 1 (seed 1). Prints wall times, the ratio quimb / engine, max |dC| between the two over the
+probes X and Z, and writes data/benchmarks/vs_tebd.json. The peer is described in scripts/bench/common.py.
+Single BLAS thread (set OPENBLAS_NUM_THREADS to override). A benchmark, not a test.
+"""
+
+from __future__ import annotations
+
+import os
+
+for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "NUMBA_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
+
+import argparse  # noqa: E402
+import sys  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+import mpo_fronts as mf  # noqa: E402
+import mpo_fronts.evolve  # noqa: E402,F401
+from common import engine_otoc, limit_blas, quimb_tebd_otoc, table, write_json  # noqa: E402
+
+CHAINS = {"mfi": ("mixed-field Ising", lambda L: mf.mixed_field_ising_chain(L)),
+          "heis": ("Heisenberg W=1", lambda L: mf.xxz_chain(L, delta=1.0, W=1.0, seed=1))}
+
+
+def main(argv=None) -> None:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--L", type=int, default=32)
+    ap.add_argument("--chis", type=int, nargs="+", default=[32, 64, 128])
+    ap.add_argument("--t", type=float, default=4.0)
+    ap.add_argument("--dt", type=float, default=0.05)
+    ap.add_argument("--chains", nargs="+", default=list(CHAINS), choices=list(CHAINS))
+    args = ap.parse_args(argv)
+    import quimb.tensor  # noqa: F401
+    _blas = limit_blas(int(os.environ["OPENBLAS_NUM_THREADS"]))  # noqa: F841
+
+    small = mf.xxz_chain(8, W=1.0, seed=0)  # warm-up (numba compilation in quimb, gate caches)
+    quimb_tebd_otoc(small, "Z", 4, [0.2], chi=8, dt=0.1)
+    engine_otoc(small, "Z", 4, [0.2], chi=8, dt=0.1)
+    site = args.L // 2
+    times = [args.t / 4, args.t / 2, args.t]
+    rows = []
+    for key in args.chains:
+        label, make = CHAINS[key]
+        chain = make(args.L)
+        for chi in args.chis:
+            e = engine_otoc(chain, "Z", site, times, chi=chi, dt=args.dt, order=2)
+            q = quimb_tebd_otoc(chain, "Z", site, times, chi=chi, dt=args.dt, order=2)
+            res = e["result"]
+            dC = max(np.abs(res.otoc(v) - q["otoc"][v]).max() for v in "XZ")
+            t_q = q["t_evolve"] + q["t_readout"]
+            rows.append({"chain": label, "L": args.L, "chi": chi, "t_engine_s": e["t_total"], "t_quimb_s": t_q,
+                         "ratio": t_q / e["t_total"], "ratio_evolve_only": q["t_evolve"] / e["t_total"],
+                         "max|dC|": dC, "engine_discarded": float(res.discarded_weight[-1]),
+                         "engine_max_bond": int(res.max_bond[-1]), "quimb_max_bond": q["max_bond"][-1],
+                         "graded": bool(chain.conserves_sz and chi >= getattr(mf.evolve, "GRADED_MIN_CHI", 10**9))})
+            print(f"{label}, chi {chi}: engine {e['t_total']:.2f} s, quimb {t_q:.2f} s, "
+                  f"ratio {t_q / e['t_total']:.2f}x, max|dC| {dC:.1e}", flush=True)
+    print()
+    print(f"L = {args.L}, W = Z at site {site}, times {times}, dt = {args.dt}, order 2, "
+          f"BLAS threads {os.environ['OPENBLAS_NUM_THREADS']}")
+    print(table(rows, ["chain", "chi", "t_engine_s", "t_quimb_s", "ratio", "ratio_evolve_only", "max|dC|",
+                       "engine_discarded", "engine_max_bond", "quimb_max_bond"]))
+    path = write_json("vs_tebd", {"settings": vars(args), "site": site, "times": times, "rows": rows})
+    print(f"wrote {path}")
+
+
+if __name__ == "__main__":
+    main()
