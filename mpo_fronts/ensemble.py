@@ -375,7 +375,7 @@ def _make_dask_client(spec: str):
 
     if kind == "local":
         cluster = distributed.LocalCluster(n_workers=arg, threads_per_worker=1, processes=True,
-                                           dashboard_address=None, silence_logs=logging.ERROR)
+                                           dashboard_address=":0", silence_logs=logging.ERROR)
         return distributed.Client(cluster), cluster
     try:
         return distributed.Client(arg, timeout="15s"), None
@@ -490,9 +490,13 @@ class _Driver:
         self.bar.update(done_now=len(self.report.computed), running=self.running)
 
     def poll_running(self) -> None:
+        timeout = self.rd.description.run_options["claim_timeout"]
         for k, info in self.rd.claim_infos().items():
             if info.run_id == self.run_id:
-                self.running[k] = info.t
+                if info.alive(timeout):
+                    self.running[k] = info.t
+                else:
+                    self.running.pop(k, None)
         self.bar.update(running=self.running)
 
     def rounds(self, one_round: Callable[[list[int]], None], wait: bool, interval: float = 2.0) -> None:

@@ -305,21 +305,25 @@ class RunDirectory:
         rd = cls(p, description)
         with rd.lock():
             cls.check_target(p, description)  # again, under the lock
+            rd._write_run_file(description)
             for sub in (rd.results, rd.claims, rd.checkpoints):
                 sub.mkdir(exist_ok=True)
-            version, conventions = _package_info()
-            if (p / RUN_FILE).is_file():
-                meta = cls._read_run_file(p)
-                stored = parse_description(meta["description"])
-                if description.realizations <= stored.realizations:
-                    # keep the stored (larger) count; this session's [run] options apply
-                    rd.description = description.replace(ensemble__realizations=stored.realizations)
-                    return rd
-            _atomic_text(p / RUN_FILE, json.dumps({
-                "format": "mpo_fronts.run/1", "version": version, "conventions": conventions,
-                "fingerprint": description.fingerprint(), "description": description.to_dict(),
-                "source": description.source}, indent=1, sort_keys=True) + "\n")
         return rd
+
+    def _write_run_file(self, description: RunDescription) -> None:
+        """Write run.json (first of all files), or keep the stored one if it already has more realizations."""
+        p = self.path
+        version, conventions = _package_info()
+        if (p / RUN_FILE).is_file():
+            stored = parse_description(self._read_run_file(p)["description"])
+            if description.realizations <= stored.realizations:
+                # keep the stored (larger) count; this session's [run] options apply
+                self.description = description.replace(ensemble__realizations=stored.realizations)
+                return
+        _atomic_text(p / RUN_FILE, json.dumps({
+            "format": "mpo_fronts.run/1", "version": version, "conventions": conventions,
+            "fingerprint": description.fingerprint(), "description": description.to_dict(),
+            "source": description.source}, indent=1, sort_keys=True) + "\n")
 
     @contextlib.contextmanager
     def lock(self):
