@@ -363,10 +363,20 @@ def _cmd_check(args) -> int:
              f"cutoff {e['cutoff']:g}, {len(res['per_realization'])} realization(s) against dense exact evolution",
              f"largest |C_engine - C_exact| = {res['max_deviation']:.3g} (realization {w['realization']}, probe "
              f"{w['probe']}, t = {w['t']:g}, r = {w['r']}); tolerance {args.tol:g}: {'OK' if ok else 'EXCEEDED'}",
+             _exceeded_line(res, args.tol),
              "largest discarded weight: "
              f"{max(p['discarded_weight'] for p in res['per_realization']):.3g} (a deviation with no discarded "
              "weight is Trotter error: lower engine.dt or use engine.order = 4)")
     return 0 if ok else 1
+
+
+def _exceeded_line(res: dict, tol: float) -> str:
+    over = [t for t, d in zip(res["times"], res["deviation_by_time"]) if d > tol]
+    if not over:
+        return f"every time point is within the tolerance (t up to {res['times'][-1]:g})"
+    ok = [t for t, d in zip(res["times"], res["deviation_by_time"]) if t < over[0]]
+    return (f"within the tolerance up to t = {ok[-1]:g}; exceeded from t = {over[0]:g} on" if ok
+            else f"exceeded already at the first time t = {over[0]:g}")
 
 
 def _cmd_converge(args) -> int:

@@ -251,6 +251,13 @@ def compute_realization(run_dir: str, description: dict, k: int, run_id: str,
 
 
 def _compute_realization(run_dir, description, k, run_id, progress) -> dict:
+    import socket
+
+    from .store import RUN_FILE
+
+    if not (Path(run_dir) / RUN_FILE).is_file():
+        raise UserError(f"the worker on {socket.gethostname()} cannot see the run directory {run_dir}; Dask "
+                        "workers on other machines need it on a shared file system, at the same path")
     desc = parse_description(description)
     rd = RunDirectory(run_dir, desc)
     claim = rd.claim(k, run_id)
@@ -608,6 +615,7 @@ def check_against_exact(description: RunDescription, L: int = 10, realizations: 
     times = description.times
     worst = {"max_deviation": -1.0}
     per = []
+    by_time = np.zeros(times.size)
     with contextlib.ExitStack() as stack:
         from threadpoolctl import threadpool_limits
 
@@ -623,6 +631,7 @@ def check_against_exact(description: RunDescription, L: int = 10, realizations: 
                 for v in description.probes:
                     mine = res["state_otoc"][v][s] if bits is not None else res["otoc"][v]
                     dev = np.abs(mine - ex.otoc(v))
+                    by_time = np.maximum(by_time, dev.max(axis=1))
                     i = np.unravel_index(int(np.argmax(dev)), dev.shape)
                     if dev[i] > worst["max_deviation"]:
                         worst = {"max_deviation": float(dev[i]), "where": {
@@ -634,7 +643,7 @@ def check_against_exact(description: RunDescription, L: int = 10, realizations: 
                 progress(f"realization {k}: largest deviation {dev_k:.3g}, discarded weight "
                          f"{per[-1]['discarded_weight']:.3g}")
     return {**worst, "per_realization": per, "L": L, "site": site, "engine": description.engine,
-            "times": times.tolist()}
+            "times": times.tolist(), "deviation_by_time": by_time.tolist()}
 
 
 def converge(description: RunDescription, chis: Sequence[int], out, *, dt: float | None = None,
