@@ -296,10 +296,23 @@ def _cmd_run(args) -> int:
 
 
 def _cmd_status(args) -> int:
+    from .store import RUN_FILE, convergence_runs
+
+    runs = convergence_runs(args.directory) if not (Path(args.directory) / RUN_FILE).is_file() else {}
+    if runs:  # a convergence study: one status per bond dimension
+        for chi, path in runs.items():
+            if not args.json:
+                print(f"chi = {chi}:")
+            _status_one(path, args.json)
+        return 0
+    return _status_one(args.directory, args.json)
+
+
+def _status_one(directory, as_json: bool) -> int:
     from .store import run_status
 
-    st = run_status(args.directory)
-    if args.json:
+    st = run_status(directory)
+    if as_json:
         st = dict(st)
         st["checkpointed"] = {str(k): v for k, v in st["checkpointed"].items()}
         print(json.dumps(st, indent=1))
@@ -523,6 +536,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     except FrontsError as exc:
         print(_paragraph(f"fronts {args.command}: {exc}"), file=sys.stderr)
         return 1
+    except BrokenPipeError:  # output piped into head & co.
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
     except KeyboardInterrupt:
         print(f"fronts {args.command}: interrupted; finished realizations and checkpoints are kept, run the same "
               "command again to continue", file=sys.stderr)
