@@ -277,7 +277,8 @@ class RunDirectory:
         if p.exists() and not p.is_dir():
             raise RunDirectoryError(f"{p}: exists and is not a directory; choose another --out")
         if p.is_dir() and not (p / RUN_FILE).is_file():
-            if any(child.name != ".lock" for child in p.iterdir()):
+            # a run being created right now holds only our lock file and the temporary run.json
+            if any(not (child.name == ".lock" or child.name.startswith(f".{RUN_FILE}.")) for child in p.iterdir()):
                 raise RunDirectoryError(f"{p}: exists, is not empty and is not a run directory (no {RUN_FILE}); "
                                         "choose a new or empty --out directory")
             return
