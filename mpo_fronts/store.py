@@ -32,7 +32,6 @@ the largest Trotter step actually used).
 from __future__ import annotations
 
 import contextlib
-import errno
 import fcntl
 import json
 import os
@@ -47,7 +46,7 @@ from typing import Any, Callable, Iterable, Sequence
 import numpy as np
 
 from .config import RunDescription, parse_description
-from .errors import InputError, MissingDependencyError, RunDirectoryError, require
+from .errors import InputError, RunDirectoryError, require
 
 __all__ = ["RunDirectory", "Claim", "ClaimInfo", "Ensemble", "load", "merge", "run_status", "atomic_h5",
            "RUN_FILE", "RESULT_FORMAT", "MERGED_FORMAT", "CONVERGENCE_FILE"]
@@ -181,14 +180,15 @@ class Claim:
         self._thread = threading.Thread(target=self._beat, name=f"fronts-claim-{k}", daemon=True)
         self._thread.start()
 
+    SIZE = 512  # fixed-size content: one pwrite replaces it whole, so a reader never sees a mixture
+
     def _content(self) -> bytes:
-        return (_json({"k": self.k, "host": socket.gethostname(), "pid": os.getpid(), "run_id": self.run_id,
-                       "started": self.started, "t": self.t, "t_final": self.t_final}) + "\n").encode()
+        text = _json({"k": self.k, "host": socket.gethostname(), "pid": os.getpid(), "run_id": self.run_id,
+                      "started": self.started, "t": self.t, "t_final": self.t_final})
+        return (text.ljust(self.SIZE - 1) + "\n").encode()
 
     def _write(self) -> None:
-        data = self._content()
-        os.pwrite(self._fd, data, 0)
-        os.ftruncate(self._fd, len(data))
+        os.pwrite(self._fd, self._content(), 0)
         os.utime(self._fd)
 
     def _beat(self) -> None:
@@ -385,7 +385,12 @@ class RunDirectory:
             path = self.claim_path(k)
             if path.exists():
                 info = _read_claim(path)
-                if info is not None and info.run_id != run_id and info.alive(timeout):
+                if info is None:  # unreadable: respect it until its modification time is older than the timeout
+                    with contextlib.suppress(OSError):
+                        if time.time() - os.stat(path).st_mtime < timeout:
+                            return ClaimInfo(k=k, host="?", pid=-1, run_id="?", started=0.0,
+                                             heartbeat=os.stat(path).st_mtime, t=0.0, t_final=0.0)
+                elif info.run_id != run_id and info.alive(timeout):
                     return info
             return Claim(path, k, run_id, float(self.description.times[-1]), self.lock)
 
@@ -436,8 +441,7 @@ class RunDirectory:
                     for i, A in enumerate(value):
                         g.create_dataset(f"{i:05d}", data=A)
                 elif isinstance(value, np.ndarray):
-                    f.create_group("engine_arrays").create_dataset(key, data=value) \
-                        if "engine_arrays" not in f else f["engine_arrays"].create_dataset(key, data=value)
+                    f.require_group("engine_arrays").create_dataset(key, data=value)
                 else:
                     scalars[key] = value.item() if isinstance(value, np.generic) else value
             f.attrs["engine_state"] = json.dumps(scalars)
@@ -446,7 +450,7 @@ class RunDirectory:
                 if isinstance(arr, dict):
                     sub = o.create_group(name)
                     for v, a in arr.items():
-                        sub.create_dataset(v, data=a[..., :n_done, :, ] if a.ndim == 3 else a[:n_done])
+                        sub.create_dataset(v, data=a[:, :n_done])  # (samples, n_t, L)
                 else:
                     o.create_dataset(name, data=arr[:n_done])
 
