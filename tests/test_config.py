@@ -35,7 +35,7 @@ def base(**changes):
     return d
 
 
-@pytest.mark.parametrize("name", sorted(p.name for p in DATA.glob("*.toml")))
+@pytest.mark.parametrize("name", ["demo_thermal.toml", "demo_localized.toml", "production_example.toml"])
 def test_data_files_parse_and_round_trip(name):
     desc = read_description(DATA / name)
     again = parse_description(desc.to_dict())
