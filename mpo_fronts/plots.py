@@ -233,9 +233,11 @@ def plot_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, lc: dict |
         ax.set_xlabel(_D_LABEL)
         if j == 0:
             ax.set_ylabel("crossing time t* (1/J)")
-        else:
+        elif np.any(np.isfinite(real.tstar) & (real.tstar > 0)) or np.any(cross.tstar[ok] > 0):
             ax.set_yscale("log")
             ax.set_ylabel("crossing time t* (1/J), log scale")
+        else:  # nothing crossed: a log axis has no positive data to scale
+            ax.set_ylabel("crossing time t* (1/J)")
     axes[0, 0].legend(fontsize=7, loc="upper left", framealpha=0.85)
     rr = lc["fits"]["ballistic"]["r_range"]
     fig.suptitle(f"{_title(ens, lc['probe'])}; threshold C = {lc['threshold']:g}, fit range d = {rr[0]}..{rr[1]}, "

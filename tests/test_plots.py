@@ -94,3 +94,14 @@ def test_only_and_missing_convergence(tmp_path):
     with pytest.raises(InputError, match="formats"):
         plots.write_figures(ens, tmp_path / "e", formats=("jpeg",))
     assert not (tmp_path / "d").exists() and not (tmp_path / "e").exists()
+
+
+def test_light_cone_figure_when_nothing_crosses(tmp_path):
+    # no distance ever reaches the threshold (C stays below 0.2): the figure is still written, on linear axes
+    ens = synthetic_ensemble(with_convergence=False)
+    C_low = 0.1 * ens.otoc("Z")
+    ens.otoc = lambda v: C_low
+    paths = plots.write_figures(ens, tmp_path, only="light_cone", threshold=0.5, formats=("png",), n_boot=20)
+    assert [p.name for p in paths] == ["light_cone.png"] and paths[0].stat().st_size > 2000
+    fig = plots.plot_light_cone(ens, 0.5, "Z", n_boot=20)
+    assert fig.axes[1].get_yscale() == "linear"
