@@ -307,7 +307,7 @@ class OperatorTEBD:
                 yield k, self
 
     def _layer_gates(self, d: float) -> np.ndarray:
-        key = round(d, 14)
+        key = float(d)  # exact: a resumed run must rebuild bit-identical gates
         G = self._gates.get(key)
         if G is None:
             if len(self._gates) > 16:
