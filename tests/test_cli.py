@@ -306,7 +306,8 @@ def test_real_demo_descriptions_are_valid():
     root = Path(__file__).resolve().parent.parent / "data"
     for name in ("thermal", "localized"):
         d = read_description(root / f"demo_{name}.toml")
-        assert d.L == 32 and d.realizations == 12 and d.times[-1] >= 90
+        assert d.L == 32 and d.realizations == 12
+        assert d.times[-1] >= (90 if name == "localized" else 25)  # thermal: the front hits the ends near t = 16
 
 
 # ------------------------------------------------------------------------------------------- kill -9 and concurrency
