@@ -512,7 +512,7 @@ def _cmd_demo(args) -> int:
     for n in _DEMOS:
         ens = _load(out / "runs" / n)
         theta = _DEMO_THRESHOLDS[n]
-        probe = _default_probe(ens, None)
+        probe = descs[n].probes[0]  # the probe of the convergence study, so that the trust map applies as is
         s = summarize(ens, threshold=theta, probe=probe)
         (out / "summary").mkdir(parents=True, exist_ok=True)
         (out / "summary" / f"{n}.json").write_text(json.dumps(s, indent=1) + "\n")
