@@ -273,7 +273,7 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
     >>> res.otoc("X").shape
     (2, 12)
     """
-    from .evolve import DEFAULT_CHUNK, OperatorTEBD
+    from .evolve import DEFAULT_CHUNK, SVD_FLOOR, OperatorTEBD
 
     eng = OperatorTEBD(chain, w=w, site=site, chi=chi, dt=dt, order=order, cutoff=cutoff,
                        chunk=chunk or DEFAULT_CHUNK)
@@ -295,6 +295,6 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
         disc[k], maxb[k] = e.discarded_weight, e.max_bond
     meta = {"method": "mpo_tebd", "w": eng.w, "site": eng.site, "chi": eng.chi, "dt": eng.dt,
             "max_step": eng.max_step, "order": eng.order, "cutoff": eng.cutoff, "state": state,
-            "svd_floor": __import__("mpo_fronts.evolve", fromlist=["SVD_FLOOR"]).SVD_FLOOR}
+            "svd_floor": SVD_FLOOR, "graded": eng.graded}
     return OtocResult(times=ts, weights=weights, right_weight=right, discarded_weight=disc, max_bond=maxb,
                       state_otoc=sotoc, meta=meta)
