@@ -158,7 +158,7 @@ def table(rows: list[dict], cols: list[str]) -> str:
             return f"{v:.4g}"
         return str(v)
     cells = [[fmt(r.get(c, "")) for c in cols] for r in rows]
-    widths = [max(len(c), *(len(row[i]) for row in cells)) for i, c in enumerate(cols)]
+    widths = [max([len(c)] + [len(row[i]) for row in cells]) for i, c in enumerate(cols)]
     lines = ["  ".join(c.rjust(w) for c, w in zip(cols, widths)), "  ".join("-" * w for w in widths)]
     lines += ["  ".join(v.rjust(w) for v, w in zip(row, widths)) for row in cells]
     return "\n".join(lines)
