@@ -41,6 +41,7 @@ def random_operator(L: int, chi: int, rng) -> list[np.ndarray]:
         q, r = np.linalg.qr(A.reshape(A.shape[0], -1).T)
         arrays[k] = q.T.reshape(-1, 4, A.shape[2])
         arrays[k - 1] = np.tensordot(arrays[k - 1], r.T, axes=(2, 0))
+        arrays[k - 1] /= np.linalg.norm(arrays[k - 1])  # keep the carried norm finite at large L
     arrays[0] /= np.linalg.norm(arrays[0])
     return arrays
 
