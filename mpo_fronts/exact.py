@@ -119,6 +119,61 @@ class _Spectrum:
         return (V @ M) @ V.conj().T
 
 
+class _SectorSpectrum:
+    """Eigendecomposition of H block by block in the sectors of total S^z (chains with ``conserves_sz``).
+
+    A local Pauli letter maps sector m to m (I, Z) or to m +- 1 (X, Y), so W(t) is assembled from blocks
+    V_a (Phi_ab * W_ab) V_b^dag between connected sectors only: for L = 12 about 20x fewer flops than the dense
+    route, and identical results to rounding.
+    """
+
+    def __init__(self, chain: Chain):
+        self.L = chain.L
+        H = sparse_hamiltonian(chain)
+        n = np.arange(2**self.L)
+        ups = self.L - np.array([bin(k).count("1") for k in n])  # spins up ('0' bits), 0..L
+        self.index = [np.flatnonzero(ups == m) for m in range(self.L + 1)]
+        self.energies, self.vecs = [], []
+        for idx in self.index:
+            block = H[idx][:, idx].toarray()
+            e, v = np.linalg.eigh(block)
+            self.energies.append(e)
+            self.vecs.append(v)
+        self.real = all(np.isrealobj(v) for v in self.vecs)
+
+    def _pairs(self, letter: str) -> list[tuple[int, int]]:
+        M = self.L + 1
+        if letter in "IZ":
+            return [(a, a) for a in range(M)]
+        return [(a, b) for a in range(M) for b in (a - 1, a + 1) if 0 <= b < M]
+
+    def to_eigenbasis(self, letter: str, site: int) -> dict:
+        """Blocks W_ab = V_a^dag P[a, b] V_b of the Pauli letter at site, between connected sectors."""
+        dim = 2**self.L
+        out = {}
+        for a, b in self._pairs(letter):
+            emb = np.zeros((dim, self.index[b].size), dtype=self.vecs[b].dtype)
+            emb[self.index[b]] = self.vecs[b]
+            PV = apply_pauli(emb, letter, site, self.L)[self.index[a]]
+            out[(a, b)] = self.vecs[a].conj().T @ PV
+        return out
+
+    def heisenberg(self, W_eig: dict, t: float) -> np.ndarray:
+        """The dense W(t) in the computational basis, assembled from the sector blocks."""
+        dim = 2**self.L
+        Wt = np.zeros((dim, dim), dtype=complex)
+        ph = [np.exp(1j * e * t) for e in self.energies]
+        for (a, b), Wab in W_eig.items():
+            M = (ph[a][:, None] * ph[b].conj()[None, :]) * Wab
+            Va, Vb = self.vecs[a], self.vecs[b]
+            if self.real:
+                blk = (Va @ M.real) @ Vb.T + 1j * ((Va @ M.imag) @ Vb.T)
+            else:
+                blk = (Va @ M) @ Vb.conj().T
+            Wt[np.ix_(self.index[a], self.index[b])] = blk
+        return Wt
+
+
 def _site_weights(Wt: np.ndarray, L: int) -> np.ndarray:
     """Single-site Pauli weights p[r, a] of a dense operator with Tr(W^dag W) / 2^L = 1 (rows sum to 1).
 
@@ -198,7 +253,9 @@ def exact_otoc(chain: Chain, w: str = "Z", site=0, times: Sequence[float] = (1.0
     Notes
     -----
     Cost: one dense diagonalisation of H (2^L x 2^L) and four real (two complex for complex H)
-    2^L x 2^L matrix products per time; memory a few dense 2^L x 2^L complex matrices (L = 12: ~0.3 GB each).
+    2^L x 2^L matrix products per time; for chains that conserve total S^z (XXZ) both are done block by block
+    in the S^z sectors (about 20x cheaper at L = 12). Memory: a few dense 2^L x 2^L complex matrices
+    (L = 12: ~0.3 GB each).
 
     Examples
     --------
@@ -214,7 +271,7 @@ def exact_otoc(chain: Chain, w: str = "Z", site=0, times: Sequence[float] = (1.0
     ts = _check_times(times)
     if state is not None:
         state = check_bits(state, L)
-    spec = _Spectrum(chain)
+    spec = _SectorSpectrum(chain) if chain.conserves_sz else _Spectrum(chain)
     W_eig = spec.to_eigenbasis(w, site)
     n_t = ts.size
     weights = np.empty((n_t, L, 4))
