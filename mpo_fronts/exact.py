@@ -175,21 +175,27 @@ class _SectorSpectrum:
 
 
 def _site_weights(Wt: np.ndarray, L: int) -> np.ndarray:
-    """Single-site Pauli weights p[r, a] of a dense operator with Tr(W^dag W) / 2^L = 1 (rows sum to 1).
+    """Single-site Pauli weights p[r, a] of a dense operator W (rows sum to 1).
 
-    With W = sum_a P_a^(r) (x) B_a: p_r(a) = Tr(B_a^dag B_a) / 2^(L-1), obtained from the 2x2x2x2 Gram tensor
-    R[i, j, k, l] = sum over the other indices of W[.i., .j.] conj(W[.k., .l.]).
+    With W = sum_a P_a^(r) (x) B_a and T_ij the blocks of W with site-r row index i and column index j:
+    B_I, B_Z = (T_00 +- T_11) / 2, B_X = (T_10 + T_01) / 2, B_Y = i (T_01 - T_10) / 2, and
+    p_r(a) is proportional to ||B_a||_F^2. Only two real inner products per site are needed beyond the norms;
+    they are taken on strided views of W.real and W.imag (no copies of the 4^L numbers).
     """
-    from .models import PAULI
-
-    dim = 2**L
+    parts = (Wt.real, Wt.imag) if np.iscomplexobj(Wt) else (Wt,)
+    total = sum(float(np.einsum("ij,ij->", x, x)) for x in parts)
     p = np.empty((L, 4))
     for r in range(L):
         A, B = 2**r, 2 ** (L - r - 1)
-        T = Wt.reshape(A, 2, B * A, 2, B)
-        R = np.tensordot(T, T.conj(), axes=([0, 2, 4], [0, 2, 4]))  # (i, j, k, l)
-        # Tr(B_a^dag B_a) = 1/4 sum P_a[j, i] conj(P_a[l, k]) R[i, j, k, l]
-        p[r] = np.einsum("aji,alk,ijkl->a", PAULI, PAULI.conj(), R).real / 4.0 / (dim / 2)
+        T = [x.reshape(A, 2, B * A, 2, B) for x in parts]
+
+        def inner(i, j, k, l):  # Re <T_ij, T_kl>
+            return sum(float(np.einsum("xyw,xyw->", t[:, i, :, j, :], t[:, k, :, l, :])) for t in T)
+
+        diag = inner(0, 0, 0, 0) + inner(1, 1, 1, 1)
+        c_iz = inner(0, 0, 1, 1)
+        c_xy = inner(0, 1, 1, 0)
+        p[r] = (diag + 2 * c_iz, total - diag + 2 * c_xy, total - diag - 2 * c_xy, diag - 2 * c_iz)
     return p / p.sum(axis=1, keepdims=True)
 
 
