@@ -1,7 +1,7 @@
 """Benchmark 3: the engine against the exact peers, dense exact evolution and dynamical typicality.
 
 Usage:  python scripts/bench/vs_exact.py [--Ws 6 1] [--Ls 8 10 12 14 16 18 20] [--dense-max 12]
-                                         [--typ-full-max 20] [--tol 1e-3]
+                                         [--typ-full-max 20] [--tol 1e-3] [--out NAME]
 
 Random-field Heisenberg chain (delta = 1), one disorder realization per W: the fields of L sites are the first
 L of a draw for 24 sites (seed 5), so every L sees the same fields near the left end. W = Z at site L // 2,
@@ -127,6 +127,7 @@ def main(argv=None) -> None:
     ap.add_argument("--typ-full-max", type=int, default=20,
                     help="largest L where one typicality state is timed (above: extrapolated)")
     ap.add_argument("--tol", type=float, default=1e-3)
+    ap.add_argument("--out", default=None, help="JSON name under data/benchmarks (default vs_exact_W<..>)")
     args = ap.parse_args(argv)
     import quimb.tensor  # noqa: F401
     _blas = limit_blas(int(os.environ["OPENBLAS_NUM_THREADS"]))  # noqa: F841
@@ -142,7 +143,7 @@ def main(argv=None) -> None:
                                 "engine_err_vs_dense", "engine_vs_typ_max|dC|", "engine_max_bond"]))
         print(f"crossover L = {r['crossover_L']}; typicality / engine at L = 20: {r['typ_over_engine_L20']}")
         print(flush=True)
-    name = "vs_exact_" + "_".join(f"W{W:g}" for W in args.Ws)
+    name = args.out or "vs_exact_" + "_".join(f"W{W:g}" for W in args.Ws)
     path = write_json(name, {"settings": vars(args), "results": out})
     print(f"wrote {path}")
 
