@@ -83,16 +83,14 @@ def _tmp_name(path: Path) -> Path:
     return path.with_name(f".{path.name}.{os.getpid()}.{uuid.uuid4().hex[:8]}.tmp")
 
 
-def atomic_h5(path, write: Callable[[Any], None]) -> Path:
-    """Write an HDF5 file through ``write(h5file)`` to a temporary name, fsync it and rename it into place."""
-    import h5py
+def _atomic_replace(path: Path, write_tmp: Callable[[Path], None]) -> Path:
+    """Let ``write_tmp(tmp)`` write a temporary sibling of path, fsync it, rename it into place, fsync the folder.
 
-    path = Path(path)
+    A killed process leaves at most a stray temporary file, never a half-written ``path``.
+    """
     tmp = _tmp_name(path)
     try:
-        with h5py.File(tmp, "w") as f:
-            write(f)
-            f.flush()
+        write_tmp(tmp)
         with open(tmp, "rb") as fh:
             os.fsync(fh.fileno())
         os.replace(tmp, path)
@@ -104,19 +102,20 @@ def atomic_h5(path, write: Callable[[Any], None]) -> Path:
     return path
 
 
+def atomic_h5(path, write: Callable[[Any], None]) -> Path:
+    """Write an HDF5 file through ``write(h5file)`` to a temporary name, fsync it and rename it into place."""
+    import h5py
+
+    def write_tmp(tmp: Path) -> None:
+        with h5py.File(tmp, "w") as f:
+            write(f)
+            f.flush()
+
+    return _atomic_replace(Path(path), write_tmp)
+
+
 def _atomic_text(path: Path, text: str) -> None:
-    tmp = _tmp_name(path)
-    try:
-        with open(tmp, "w") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            tmp.unlink()
-        raise
-    _fsync_dir(path.parent)
+    _atomic_replace(path, lambda tmp: tmp.write_text(text))
 
 
 def _json(obj) -> str:
