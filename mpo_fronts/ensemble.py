@@ -151,7 +151,7 @@ def evolve_realization(chain, *, w: str, site: int, times: Sequence[float], engi
         ``resumed_from`` (time of the checkpoint, or None).
     """
     from .evolve import SVD_FLOOR, OperatorTEBD, step_plan
-    from .readout import otoc_from_weights, pauli_weights, product_state_otoc, right_weights
+    from .readout import otoc_from_weights, product_state_otoc, read_operator
 
     t_start = time.perf_counter()
     ts = np.asarray(times, dtype=float)
@@ -167,8 +167,8 @@ def evolve_realization(chain, *, w: str, site: int, times: Sequence[float], engi
     wall_before, restarts, resumed_from = 0.0, 0, None
 
     def measure(k: int, e) -> None:
-        out["weights"][k] = pauli_weights(e.arrays, e.center)
-        out["right_weight"][k] = right_weights(e.arrays)
+        m = read_operator(e.arrays, e.center)
+        out["weights"][k], out["right_weight"][k] = m["weights"], m["right_weight"]
         out["discarded_weight"][k] = e.discarded_weight
         out["max_bond"][k] = e.max_bond
         if bits is not None:

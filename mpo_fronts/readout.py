@@ -83,7 +83,8 @@ def _right_envs(arrays: Sequence[np.ndarray], stop: int | None = None) -> list[n
     return envs
 
 
-def pauli_weights(arrays: Sequence[np.ndarray], center: int | None = None) -> np.ndarray:
+def pauli_weights(arrays: Sequence[np.ndarray], center: int | None = None,
+                  lenv: list[np.ndarray] | None = None) -> np.ndarray:
     """Single-site Pauli weights p[r, a], a in (I, X, Y, Z), normalised so that each row sums to 1.
 
     Parameters
@@ -93,10 +94,13 @@ def pauli_weights(arrays: Sequence[np.ndarray], center: int | None = None) -> np
     center : int, optional
         Orthogonality centre if the MPS is in mixed canonical form (sites left of it left-isometric, right of it
         right-isometric); skips the trivial part of the environment sweeps. ``None`` makes no assumption.
+    lenv : list of ndarray, optional
+        Left environments already computed with the same ``center`` (see :func:`read_operator`).
     """
     L = len(arrays)
     c = center
-    lenv = _left_envs(arrays, start=c if c is not None else 0)
+    if lenv is None:
+        lenv = _left_envs(arrays, start=c if c is not None else 0)
     renv = _right_envs(arrays, stop=c + 1 if c is not None else None)
     p = np.empty((L, 4))
     for r, A in enumerate(arrays):
@@ -113,11 +117,12 @@ def otoc_from_weights(weights: np.ndarray, v: str) -> np.ndarray:
     return 2.0 * weights[..., ANTICOMMUTES[v]].sum(axis=-1)
 
 
-def right_weights(arrays: Sequence[np.ndarray]) -> np.ndarray:
+def right_weights(arrays: Sequence[np.ndarray], center: int | None = None,
+                  lenv: list[np.ndarray] | None = None) -> np.ndarray:
     """Right-weight (front) profile rho[r]: the weight of strings whose rightmost non-identity letter is at r.
 
     Normalised to sum 1 over r (the identity string, which has no right end, is not counted; W(t) of a
-    traceless W has none).
+    traceless W has none). ``center`` and ``lenv`` as in :func:`pauli_weights`.
     """
     L = len(arrays)
     # Right environments restricted to identity letters on all sites >= k.
@@ -128,7 +133,8 @@ def right_weights(arrays: Sequence[np.ndarray]) -> np.ndarray:
         A0 = arrays[k][:, 0, :]
         f = A0 @ f @ A0.T
         fid[k] = f
-    lenv = _left_envs(arrays)
+    if lenv is None:
+        lenv = _left_envs(arrays, start=center if center is not None else 0)
     rho = np.empty(L)
     for r, A in enumerate(arrays):
         B = A[:, 1:, :]
@@ -231,7 +237,9 @@ class OtocResult:
 def read_operator(arrays: Sequence[np.ndarray], center: int | None = None, state: str | None = None,
                   probes: Sequence[str] = PROBES) -> dict[str, Any]:
     """Everything measured at one time: single-site weights, right-weight profile, product-state OTOCs."""
-    out: dict[str, Any] = {"weights": pauli_weights(arrays, center), "right_weight": right_weights(arrays)}
+    lenv = _left_envs(arrays, start=center if center is not None else 0)  # shared by both profiles
+    out: dict[str, Any] = {"weights": pauli_weights(arrays, center, lenv),
+                           "right_weight": right_weights(arrays, center, lenv)}
     if state is not None:
         out["state_otoc"] = {v: product_state_otoc(arrays, state, v) for v in probes}
     return out

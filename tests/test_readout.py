@@ -6,7 +6,8 @@ import numpy as np
 import pytest
 
 from mpo_fronts.models import PAULI
-from mpo_fronts.readout import ANTICOMMUTES, otoc_from_weights, pauli_weights, product_state_otoc, right_weights
+from mpo_fronts.readout import (ANTICOMMUTES, otoc_from_weights, pauli_weights, product_state_otoc, read_operator,
+                                right_weights)
 
 
 def random_mps(L=4, D=3, seed=0):
@@ -66,6 +67,10 @@ def test_weights_with_known_center_equal_generic_sweep():
         arrays[k] = q.T.reshape(-1, 4, A.shape[2])
         arrays[k - 1] = np.tensordot(arrays[k - 1], r.T, axes=(2, 0))
     assert np.allclose(pauli_weights(arrays, center=2), pauli_weights(arrays), atol=1e-13)
+    assert np.allclose(right_weights(arrays, center=2), right_weights(arrays), atol=1e-13)
+    shared = read_operator(arrays, center=2)  # one left-environment sweep for both profiles
+    assert np.allclose(shared["weights"], pauli_weights(arrays), atol=1e-13)
+    assert np.allclose(shared["right_weight"], right_weights(arrays), atol=1e-13)
 
 
 def test_right_weight_brute_force():
