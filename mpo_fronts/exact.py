@@ -52,6 +52,12 @@ def _check_chain(chain, what: str, max_L: int | None = None) -> Chain:
     return chain
 
 
+def _check_request(chain, what: str, max_L: int, w, site, times) -> tuple[Chain, str, int, np.ndarray]:
+    """The checks shared by the exact references: chain and size, operator, site, output times."""
+    chain = _check_chain(chain, what, max_L)
+    return chain, _check_w(w), check_site(site, chain.L), _check_times(times)
+
+
 def apply_pauli(vecs: np.ndarray, letter: str, site: int, L: int) -> np.ndarray:
     """Apply the Pauli ``letter`` at ``site`` to the rows of ``vecs`` (shape (2^L,) or (2^L, m)).
 
@@ -270,11 +276,8 @@ def exact_otoc(chain: Chain, w: str = "Z", site=0, times: Sequence[float] = (1.0
     >>> res.otoc("X").shape
     (2, 6)
     """
-    chain = _check_chain(chain, "exact_otoc", MAX_DENSE_L)
+    chain, w, site, ts = _check_request(chain, "exact_otoc", MAX_DENSE_L, w, site, times)
     L = chain.L
-    w = _check_w(w)
-    site = check_site(site, L)
-    ts = _check_times(times)
     if state is not None:
         state = check_bits(state, L)
     spec = _SectorSpectrum(chain) if chain.conserves_sz else _Spectrum(chain)
@@ -323,12 +326,9 @@ def eigenstate_otoc(chain: Chain, w: str = "Z", site=0, v: str = "Z", times: Seq
     -----
     Works in the eigenbasis: W(t) -> Phi * W_eig, V_r -> V^dag V_r V; one 2^L x 2^L product per (time, site).
     """
-    chain = _check_chain(chain, "eigenstate_otoc", MAX_DENSE_L)
+    chain, w, site, ts = _check_request(chain, "eigenstate_otoc", MAX_DENSE_L, w, site, times)
     L = chain.L
-    w = _check_w(w)
     v = _check_probe(v)
-    site = check_site(site, L)
-    ts = _check_times(times)
     spec = _Spectrum(chain)
     W_eig = spec.to_eigenbasis(w, site)
     A = [spec.phases(float(t)) * W_eig for t in ts]
@@ -608,12 +608,9 @@ def typicality_otoc(chain: Chain, w: str = "Z", site=0, v: str = "Z", times: Seq
     >>> res.otoc.shape
     (1, 8)
     """
-    chain = _check_chain(chain, "typicality_otoc", MAX_SPARSE_L)
+    chain, w, site, ts = _check_request(chain, "typicality_otoc", MAX_SPARSE_L, w, site, times)
     L = chain.L
-    w = _check_w(w)
     v = _check_probe(v)
-    site = check_site(site, L)
-    ts = _check_times(times)
     if isinstance(n_states, bool) or not isinstance(n_states, (int, np.integer)) or n_states < 1:
         raise InputError(f"n_states (number of random states) must be a positive integer, got {n_states!r}")
     if probe_sites is None:
