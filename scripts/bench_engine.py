@@ -27,7 +27,7 @@ import numpy as np  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parent / "bench"))
 import mpo_fronts as mf  # noqa: E402
-from common import engine_otoc, limit_blas, quimb_tebd_otoc, table, write_json  # noqa: E402
+from common import limit_blas, quimb_tebd_otoc, side_by_side, table, warm_up, write_json  # noqa: E402
 
 
 def verify_orders() -> list[dict]:
@@ -69,25 +69,16 @@ def main(argv=None) -> None:
     chain = mf.xxz_chain(args.L, delta=1.0, W=args.W, seed=args.seed)
     site = args.L // 2
     times = [args.t / 4, args.t / 2, args.t]
-    # warm-up: quimb's first use compiles (numba) and caches; the engine builds its gate cache
-    small = mf.xxz_chain(8, W=1.0, seed=0)
-    quimb_tebd_otoc(small, "Z", 4, [0.2], chi=8, dt=0.1)
-    engine_otoc(small, "Z", 4, [0.2], chi=8, dt=0.1)
+    warm_up()  # quimb's first use compiles (numba) and caches; the engine builds its gate cache
 
     rows = []
     for chi in args.chis:
-        e = engine_otoc(chain, "Z", site, times, chi=chi, dt=args.dt, order=2)
-        q = quimb_tebd_otoc(chain, "Z", site, times, chi=chi, dt=args.dt, order=2)
-        res = e["result"]
-        dC = max(np.abs(res.otoc(v) - q["otoc"][v]).max() for v in "XZ")
-        t_q = q["t_evolve"] + q["t_readout"]
-        rows.append({"L": args.L, "chi": chi, "t_engine_s": e["t_total"], "t_quimb_s": t_q,
-                     "t_quimb_evolve_s": q["t_evolve"], "ratio": t_q / e["t_total"],
-                     "ratio_evolve_only": q["t_evolve"] / e["t_total"], "max|dC|": dC,
-                     "engine_discarded": float(res.discarded_weight[-1]), "engine_max_bond": int(res.max_bond[-1]),
-                     "quimb_max_bond": q["max_bond"][-1]})
-        print(f"chi = {chi}: engine {e['t_total']:.2f} s, quimb TEBD {t_q:.2f} s "
-              f"(evolution {q['t_evolve']:.2f} s), ratio {t_q / e['t_total']:.2f}x, max|dC| = {dC:.2e}",
+        row = side_by_side(chain, site, times, chi, args.dt)
+        row["L"] = args.L
+        rows.append(row)
+        t_e, t_q, dC = row["t_engine_s"], row["t_quimb_s"], row["max|dC|"]
+        print(f"chi = {chi}: engine {t_e:.2f} s, quimb TEBD {t_q:.2f} s "
+              f"(evolution {row['t_quimb_evolve_s']:.2f} s), ratio {t_q / t_e:.2f}x, max|dC| = {dC:.2e}",
               flush=True)
     print()
     print(f"random-field Heisenberg L = {args.L}, W = {args.W}, seed {args.seed}, W = Z at site {site}, "

@@ -25,7 +25,7 @@ import numpy as np  # noqa: E402
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 import mpo_fronts as mf  # noqa: E402
 import mpo_fronts.evolve  # noqa: E402,F401
-from common import engine_otoc, limit_blas, quimb_tebd_otoc, table, write_json  # noqa: E402
+from common import limit_blas, side_by_side, table, warm_up, write_json  # noqa: E402
 
 CHAINS = {"mfi": ("mixed-field Ising", lambda L: mf.mixed_field_ising_chain(L)),
           "heis": ("Heisenberg W=1", lambda L: mf.xxz_chain(L, delta=1.0, W=1.0, seed=1))}
@@ -42,9 +42,7 @@ def main(argv=None) -> None:
     import quimb.tensor  # noqa: F401
     _blas = limit_blas(int(os.environ["OPENBLAS_NUM_THREADS"]))  # noqa: F841
 
-    small = mf.xxz_chain(8, W=1.0, seed=0)  # warm-up (numba compilation in quimb, gate caches)
-    quimb_tebd_otoc(small, "Z", 4, [0.2], chi=8, dt=0.1)
-    engine_otoc(small, "Z", 4, [0.2], chi=8, dt=0.1)
+    warm_up()  # numba compilation in quimb, gate caches
     site = args.L // 2
     times = [args.t / 4, args.t / 2, args.t]
     rows = []
@@ -52,18 +50,13 @@ def main(argv=None) -> None:
         label, make = CHAINS[key]
         chain = make(args.L)
         for chi in args.chis:
-            e = engine_otoc(chain, "Z", site, times, chi=chi, dt=args.dt, order=2)
-            q = quimb_tebd_otoc(chain, "Z", site, times, chi=chi, dt=args.dt, order=2)
-            res = e["result"]
-            dC = max(np.abs(res.otoc(v) - q["otoc"][v]).max() for v in "XZ")
-            t_q = q["t_evolve"] + q["t_readout"]
-            rows.append({"chain": label, "L": args.L, "chi": chi, "t_engine_s": e["t_total"], "t_quimb_s": t_q,
-                         "ratio": t_q / e["t_total"], "ratio_evolve_only": q["t_evolve"] / e["t_total"],
-                         "max|dC|": dC, "engine_discarded": float(res.discarded_weight[-1]),
-                         "engine_max_bond": int(res.max_bond[-1]), "quimb_max_bond": q["max_bond"][-1],
-                         "graded": bool(chain.conserves_sz and chi >= getattr(mf.evolve, "GRADED_MIN_CHI", 10**9))})
-            print(f"{label}, chi {chi}: engine {e['t_total']:.2f} s, quimb {t_q:.2f} s, "
-                  f"ratio {t_q / e['t_total']:.2f}x, max|dC| {dC:.1e}", flush=True)
+            row = side_by_side(chain, site, times, chi, args.dt)
+            row.update(chain=label, L=args.L,
+                       graded=bool(chain.conserves_sz and chi >= getattr(mf.evolve, "GRADED_MIN_CHI", 10**9)))
+            rows.append(row)
+            t_e, t_q, dC = row["t_engine_s"], row["t_quimb_s"], row["max|dC|"]
+            print(f"{label}, chi {chi}: engine {t_e:.2f} s, quimb {t_q:.2f} s, "
+                  f"ratio {t_q / t_e:.2f}x, max|dC| {dC:.1e}", flush=True)
     print()
     print(f"L = {args.L}, W = Z at site {site}, times {times}, dt = {args.dt}, order 2, "
           f"BLAS threads {os.environ['OPENBLAS_NUM_THREADS']}")
