@@ -15,7 +15,7 @@ import textwrap
 from pathlib import Path
 from typing import Sequence
 
-from .errors import FrontsError, InputError, UserError
+from .errors import FrontsError, InputError, UserError, require
 
 __all__ = ["main", "build_parser"]
 
@@ -498,6 +498,7 @@ def _cmd_demo(args) -> int:
     data = _demo_data(args.data)
     summarize = _need_analysis("summarize")
     write_figures = _need_analysis("write_figures", "plots")
+    require("matplotlib", "plot")  # the figures come last: fail before any work, not after it
     out = Path(args.out)
     descs = {n: read_description(data / f"demo_{n}.toml") for n in _DEMOS}
     for n, d in descs.items():  # validate every target before any work

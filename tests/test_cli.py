@@ -393,3 +393,19 @@ def test_two_runs_at_once_share_the_work(tmp_path):
     assert len(run_ids) == 4
     res = fronts("status", out)
     assert re.search(r"done:\s+4 of 4", res.stdout)
+
+
+def test_demo_without_matplotlib_fails_before_any_work(tmp_path, monkeypatch, capsys):
+    # the figures come last; a missing optional dependency must stop the demo before it computes or writes
+    import mpo_fronts.cli as cli
+    from mpo_fronts.errors import MissingDependencyError
+
+    def missing(module, extra):
+        raise MissingDependencyError(f"the optional dependency '{module}' is not installed; "
+                                     f"install it with \"pip install 'mpo-fronts[{extra}]'\"")
+
+    monkeypatch.setattr(cli, "require", missing)
+    out = tmp_path / "demo"
+    assert main(["demo", "--out", str(out), "--progress", "none"]) == 2
+    assert "mpo-fronts[plot]" in capsys.readouterr().err
+    assert not out.exists()
