@@ -17,7 +17,8 @@ Tables and keys (defaults in brackets)::
     [state]       kind ["infinite_temperature"] | "product" (needs bits = "0101...", '0' = spin up)
                   | "random_product" (samples [1] random basis states per realization)
     [times]       values = [...] (strictly increasing, >= 0), or start, stop, num, spacing ["log"] | "linear"
-    [engine]      chi [64], dt [0.05], order [2], cutoff [0.0], chunk [20] (see mpo_fronts.evolve.OperatorTEBD)
+    [engine]      chi [64], dt [0.05], order [2], cutoff [0.0], chunk [20], truncation ["svd"] (or "eigh")
+                  (see mpo_fronts.evolve.OperatorTEBD)
     [ensemble]    realizations [1 without randomness, else required], seed [0]
     [run]         label [""], checkpoints [true], checkpoint_interval [300.0 s], claim_timeout [600.0 s]
 
@@ -70,7 +71,7 @@ SCHEMA: dict[str, tuple[str, ...]] = {
     "operators": ("w", "site", "v"),
     "state": ("kind", "bits", "samples"),
     "times": ("values", "start", "stop", "num", "spacing"),
-    "engine": ("chi", "dt", "order", "cutoff", "chunk"),
+    "engine": ("chi", "dt", "order", "cutoff", "chunk", "truncation"),
     "ensemble": ("realizations", "seed"),
     "run": ("label", "checkpoints", "checkpoint_interval", "claim_timeout"),
 }
@@ -297,7 +298,10 @@ def _parse_engine(e: dict) -> dict:
     if not 0 <= cutoff < 1:
         raise ConfigError("engine.cutoff", f"expected a number in [0, 1) (discarded weight per truncation), got {cutoff}")
     chunk = _int("engine.chunk", e.get("chunk", 20), 1, "a positive integer (Trotter steps per block)")
-    return {"chi": chi, "dt": dt, "order": order, "cutoff": cutoff, "chunk": chunk}
+    truncation = e.get("truncation", "svd")
+    if truncation not in ("svd", "eigh"):
+        raise ConfigError("engine.truncation", f'expected "svd" or "eigh" (how gates are truncated), got {truncation!r}')
+    return {"chi": chi, "dt": dt, "order": order, "cutoff": cutoff, "chunk": chunk, "truncation": truncation}
 
 
 def _parse_run(r: dict) -> dict:

@@ -132,7 +132,8 @@ def evolve_realization(chain, *, w: str, site: int, times: Sequence[float], engi
     times : sequence of float
         Output times (units 1/J).
     engine : dict
-        ``chi``, ``dt``, ``order``, ``cutoff``, ``chunk`` of :class:`mpo_fronts.evolve.OperatorTEBD`.
+        ``chi``, ``dt``, ``order``, ``cutoff``, ``chunk``, ``truncation`` (optional, default 'svd') of
+        :class:`mpo_fronts.evolve.OperatorTEBD`.
     probes : sequence of str
         Probes V whose OTOC is stored.
     bits : sequence of str, optional
@@ -157,7 +158,7 @@ def evolve_realization(chain, *, w: str, site: int, times: Sequence[float], engi
     ts = np.asarray(times, dtype=float)
     n_t, L = ts.size, chain.L
     eng = OperatorTEBD(chain, w=w, site=site, chi=engine["chi"], dt=engine["dt"], order=engine["order"],
-                       cutoff=engine["cutoff"], chunk=engine["chunk"])
+                       cutoff=engine["cutoff"], chunk=engine["chunk"], truncation=engine.get("truncation", "svd"))
     S = len(bits) if bits is not None else 0
     out: dict[str, Any] = {"weights": np.zeros((n_t, L, 4)), "right_weight": np.zeros((n_t, L)),
                            "discarded_weight": np.zeros(n_t), "max_bond": np.zeros(n_t, dtype=np.int64)}
@@ -216,7 +217,8 @@ def evolve_realization(chain, *, w: str, site: int, times: Sequence[float], engi
         result["state_otoc"] = None
         result["bits"] = None
     result["engine"] = {"method": "mpo_tebd", "chi": eng.chi, "dt": eng.dt, "order": eng.order,
-                        "cutoff": eng.cutoff, "chunk": eng.chunk, "max_step": eng.max_step, "svd_floor": SVD_FLOOR}
+                        "cutoff": eng.cutoff, "chunk": eng.chunk, "max_step": eng.max_step, "svd_floor": SVD_FLOOR,
+                        "truncation": eng.truncation, "graded": eng.graded}
     result["wall_time"] = wall_before + time.perf_counter() - t_start
     result["restarts"] = restarts
     result["resumed_from"] = resumed_from

@@ -17,7 +17,9 @@ requested times, dt and chunk, so a run resumed from a checkpoint repeats the un
 Truncation happens in every gate, with the orthogonality centre inside the two-site block (it is tracked and
 moved by QR, never by a full re-canonicalization): keep at most ``chi`` singular values and drop the smallest
 ones while their summed square stays below ``cutoff``; values below ``1e-13`` of the largest are numerical
-zeros and are always dropped. Because every gate is orthogonal, the Frobenius weight sum_S c_S^2 only changes by
+zeros and are always dropped. The decomposition (:func:`split`) is by default the eigendecomposition of the
+block's Gram matrix wherever the cut falls in the well-resolved part of its spectrum (2-3x cheaper than the SVD
+at chi >= 64), and the SVD everywhere else. Because every gate is orthogonal, the Frobenius weight sum_S c_S^2 only changes by
 truncation: the ledger of dropped squared singular values equals the norm loss 1 - sum_S c_S^2 exactly.
 
 Gates are applied only on bonds that touch the support of W(t) (the sites that may carry non-identity
@@ -35,11 +37,15 @@ from .errors import InputError
 from .models import Chain
 from .pauli import LETTERS, bond_propagators, transfer_matrices
 
-__all__ = ["OperatorTEBD", "step_plan", "step_layers", "block_layers", "time_grid", "SVD_FLOOR", "ORDERS"]
+__all__ = ["OperatorTEBD", "step_plan", "step_layers", "block_layers", "time_grid", "split", "keep_count",
+           "SVD_FLOOR", "EIGH_TRUST", "ORDERS", "TRUNCATIONS"]
 
 ORDERS = (2, 4)
 _LETTER_PARITY = np.array([0, 1, 1, 0], dtype=np.int8)  # I, X, Y, Z: number of X/Y letters mod 2
 SVD_FLOOR = 1e-13
+EIGH_TRUST = 1e-10  # one Gram eigendecomposition pass resolves eigenvalues down to this fraction of its largest
+EIGH_MIN_DIM = 48  # below this matrix size the SVD is cheap and the Gram route gains nothing
+TRUNCATIONS = ("eigh", "svd")
 DEFAULT_CHUNK = 20
 GRADED_MIN_CHI = 32
 _P4 = 1.0 / (4.0 - 4.0 ** (1.0 / 3.0))
@@ -182,6 +188,11 @@ class OperatorTEBD:
     graded : bool, optional
         Use Z2-graded blocks (two half-size SVDs per gate instead of one); default: when the chain conserves
         total S^z and chi >= 32. Results equal the ungraded engine to rounding.
+    truncation : {'svd', 'eigh'}
+        How each gate is split and truncated (see :func:`split`): 'svd' (default, LAPACK gesdd) or 'eigh'
+        (Gram-matrix eigendecompositions with refinement passes for the small singular values; faster at large
+        chi, agrees with 'svd' to about 1e-6 relative, see README, Performance). ``splits`` counts the gates
+        that went each way (small matrices always go to the SVD).
 
     Examples
     --------
@@ -194,7 +205,8 @@ class OperatorTEBD:
     """
 
     def __init__(self, chain: Chain, w: str = "Z", site=0, chi: int = 64, dt: float = 0.05, order: int = 2,
-                 cutoff: float = 0.0, chunk: int = DEFAULT_CHUNK, graded: bool | None = None):
+                 cutoff: float = 0.0, chunk: int = DEFAULT_CHUNK, graded: bool | None = None,
+                 truncation: str = "svd"):
         if not isinstance(chain, Chain):
             raise InputError(f"chain must be a Chain (from xxz_chain, mixed_field_ising_chain, nn_chain), got {type(chain).__name__}")
         self.chain = chain
@@ -214,6 +226,10 @@ class OperatorTEBD:
         if isinstance(chunk, bool) or not isinstance(chunk, Integral) or chunk < 1:
             raise InputError(f"chunk must be a positive integer, got {chunk!r}")
         self.chunk = int(chunk)
+        if truncation not in TRUNCATIONS:
+            raise InputError(f"truncation must be 'eigh' or 'svd', got {truncation!r}")
+        self.truncation = truncation
+        self.splits = {"eigh": 0, "svd": 0}
         self._hb = chain.bond_hamiltonians()
         self._gates: dict[float, np.ndarray] = {}
         ident = np.zeros((1, 4, 1))
@@ -264,7 +280,7 @@ class OperatorTEBD:
         """Everything needed to continue the evolution (numpy arrays and numbers only)."""
         return {"arrays": [A.copy() for A in self.arrays], "t": self.t, "discarded_weight": self.discarded_weight,
                 "blocks_done": self.blocks_done, "center": self.center, "lo": self.lo, "hi": self.hi,
-                "max_step": self.max_step, "labels": [x.copy() for x in self.labels]}
+                "max_step": self.max_step, "labels": [x.copy() for x in self.labels], "splits": dict(self.splits)}
 
     def load_state_dict(self, state: dict) -> None:
         """Restore a state saved by :meth:`state_dict` (same chain, operator and engine settings)."""
@@ -278,6 +294,7 @@ class OperatorTEBD:
         self.center = int(state["center"])
         self.lo, self.hi = int(state["lo"]), int(state["hi"])
         self.max_step = float(state.get("max_step", 0.0))
+        self.splits = {"eigh": 0, "svd": 0, **{k: int(v) for k, v in dict(state.get("splits", {})).items()}}
         if "labels" in state:
             self.labels = [np.asarray(x, dtype=np.int8) for x in state["labels"]]
 
@@ -380,36 +397,178 @@ class OperatorTEBD:
     def _gate(self, b: int, G: np.ndarray, to_right: bool) -> None:
         A, B = self.arrays[b], self.arrays[b + 1]
         Dl, Dr = A.shape[0], B.shape[2]
-        theta = np.tensordot(A, B, axes=(2, 0)).reshape(Dl, 16, Dr)
+        theta = (A.reshape(Dl * 4, A.shape[2]) @ B.reshape(B.shape[0], 4 * Dr)).reshape(Dl, 16, Dr)
         theta = np.matmul(G, theta).reshape(Dl * 4, 4 * Dr)
-        if self.graded:
-            u, s, vt, lab = _graded_svd(theta, self._row_parity(b), self._col_parity(b + 1))
-        else:
-            u, s, vt = _svd(theta)
-            lab = None
-        k = self._keep(s)
-        if k < s.size:
-            self.discarded_weight += float(np.sum(s[k:] ** 2))
-        u, s, vt = u[:, :k], s[:k], vt[:k]
+        rp, cp = (self._row_parity(b), self._col_parity(b + 1)) if self.graded else (None, None)
+        left, right, lab, disc, route = split(theta, self.chi, self.cutoff, to_right, rp, cp, self.truncation)
+        self.discarded_weight += disc
+        self.splits[route] += 1
+        k = left.shape[1]
         if lab is not None:
-            self.labels[b] = lab[:k]
-        if to_right:
-            self.arrays[b] = u.reshape(Dl, 4, k)
-            self.arrays[b + 1] = (s[:, None] * vt).reshape(k, 4, Dr)
-            self.center = b + 1
-        else:
-            self.arrays[b] = (u * s).reshape(Dl, 4, k)
-            self.arrays[b + 1] = vt.reshape(k, 4, Dr)
-            self.center = b
+            self.labels[b] = lab
+        self.arrays[b] = left.reshape(Dl, 4, k)
+        self.arrays[b + 1] = right.reshape(k, 4, Dr)
+        self.center = b + 1 if to_right else b
 
-    def _keep(self, s: np.ndarray) -> int:
-        """Number of singular values kept (at least one)."""
-        k = min(self.chi, int(np.count_nonzero(s > SVD_FLOOR * s[0]))) if s[0] > 0 else 1
-        if self.cutoff > 0 and k > 1:
-            tail = np.cumsum((s[k - 1::-1] ** 2))  # tail[j] = sum of the j+1 smallest kept values squared
-            extra = int(np.searchsorted(tail, self.cutoff, side="right"))
-            k = max(1, k - extra)
-        return max(k, 1)
+
+# -------------------------------------------------------------------------------------------- truncation
+def keep_count(s: np.ndarray, chi: int, cutoff: float = 0.0) -> int:
+    """How many of the descending singular values ``s`` a truncation keeps (at least one).
+
+    At most ``chi``; values at or below ``SVD_FLOOR * s[0]`` are numerical zeros; then the smallest kept values are
+    dropped while their summed square stays at or below ``cutoff``.
+    """
+    k = min(chi, int(np.count_nonzero(s > SVD_FLOOR * s[0]))) if s[0] > 0 else 1
+    if cutoff > 0 and k > 1:
+        tail = np.cumsum((s[k - 1::-1] ** 2))  # tail[j] = sum of the j+1 smallest kept values squared
+        extra = int(np.searchsorted(tail, cutoff, side="right"))
+        k = max(1, k - extra)
+    return max(k, 1)
+
+
+def split(theta: np.ndarray, chi: int, cutoff: float, to_right: bool, row_par=None, col_par=None,
+          truncation: str = "svd"):
+    """Truncated factorization ``theta ~ left @ right`` with the optimal rank-k projection.
+
+    ``to_right``: ``left`` has orthonormal columns and ``right`` carries the weight (the orthogonality centre
+    moves right); otherwise ``right`` has orthonormal rows. ``row_par``/``col_par``: Z2 parities of the rows and
+    columns of a block-diagonal ``theta`` (graded engine), or None.
+
+    ``truncation='svd'``: LAPACK gesdd (gesvd on failure). ``truncation='eigh'``: eigendecomposition of the Gram
+    matrix on the shorter side of each block (after a QR when the isometric side is the longer one), refined in
+    the orthogonal complement until the kept spectrum is resolved (:func:`_gram_top`); the weight-carrying factor
+    is the exact projection of theta on the kept vectors (no division by singular values), so the discarded
+    weight is the true norm loss. Matrices smaller than ``EIGH_MIN_DIM`` go to the SVD.
+
+    Returns ``left, right, labels, discarded, route``: labels are the parities of the kept bond index (None when
+    ungraded), discarded is the summed squared singular values (eigenvalues) dropped, route is 'eigh' or 'svd'.
+    """
+    blocks = _blocks(theta, row_par, col_par)
+    if truncation == "eigh" and min(theta.shape) >= EIGH_MIN_DIM:
+        out = _split_eigh(blocks, chi, cutoff, to_right)
+        if out is not None:
+            return (*_assemble(theta.shape, blocks, out[0], graded=row_par is not None), out[1], "eigh")
+    parts, disc = _split_svd(blocks, chi, cutoff, to_right)
+    return (*_assemble(theta.shape, blocks, parts, graded=row_par is not None), disc, "svd")
+
+
+def _blocks(theta, row_par, col_par):
+    """``[(label, rows, cols, matrix)]``: the nonzero Z2 blocks of theta, or one block that is theta itself."""
+    if row_par is None:
+        return [(0, None, None, theta)]
+    out = []
+    for p in (0, 1):
+        r, c = np.flatnonzero(row_par == p), np.flatnonzero(col_par == p)
+        if r.size and c.size:
+            out.append((p, r, c, theta[np.ix_(r, c)]))
+    return out
+
+
+def _split_svd(blocks, chi, cutoff, to_right):
+    svds = [_svd(m) for *_, m in blocks]
+    s_all = np.concatenate([x[1] for x in svds])
+    order = np.argsort(-s_all, kind="stable")
+    k = keep_count(s_all[order], chi, cutoff)
+    kept = np.zeros(s_all.size, dtype=bool)
+    kept[order[:k]] = True
+    disc = float(np.sum(s_all[~kept] ** 2))
+    parts, off = [], 0
+    for u, s, vt in svds:
+        kp = int(np.count_nonzero(kept[off:off + s.size]))  # a block's kept values are its largest ones
+        off += s.size
+        u, s, vt = u[:, :kp], s[:kp], vt[:kp]
+        parts.append((u, s[:, None] * vt) if to_right else (u * s, vt))
+    return parts, disc
+
+
+def _gram_top(m: np.ndarray, chi: int, floor2: float):
+    """Top left singular vectors of m (at most chi) and their squared singular values, from Gram matrices.
+
+    One eigendecomposition of m m^T resolves the eigenvalues down to ``EIGH_TRUST`` of the largest (below that,
+    rounding of order eps * lambda_max dominates). If more vectors are needed, the rest of the spectrum is
+    resolved in the orthogonal complement of the vectors taken: m is projected on it and the step repeats, each
+    pass reaching ``EIGH_TRUST`` deeper, until chi vectors are taken or what is left is below ``floor2``
+    (numerical zeros, like the SVD's floor). Returns (vectors (rows, k), eigenvalues (k,), weight not taken).
+    """
+    vecs, lams = [], []
+    need = min(chi, m.shape[0])
+    basis = None  # orthonormal basis of the current complement, in the original row space (None: all rows)
+    x = m
+    while True:
+        lam, vec = np.linalg.eigh(x @ x.T)
+        lam, vec = lam[::-1], vec[:, ::-1]
+        top = lam[0]
+        if not top > floor2:  # only numerical zeros remain
+            return _stack(vecs, lams, m.shape[0]), max(float(np.sum(np.clip(lam, 0.0, None))), 0.0)
+        take = min(need, int(np.count_nonzero(lam >= EIGH_TRUST * top)))
+        v = vec[:, :take]
+        vecs.append(v if basis is None else basis @ v)
+        lams.append(lam[:take])
+        need -= take
+        if need == 0 or take == lam.size:
+            rest = float(np.sum(np.clip(lam[take:], 0.0, None)))
+            return _stack(vecs, lams, m.shape[0]), rest
+        comp = vec[:, take:]
+        basis = comp if basis is None else basis @ comp
+        x = comp.T @ x
+
+
+def _stack(vecs, lams, rows):
+    if not vecs:
+        return np.zeros((rows, 0)), np.zeros(0)
+    return np.ascontiguousarray(np.hstack(vecs)), np.concatenate(lams)
+
+
+def _split_eigh(blocks, chi, cutoff, to_right):
+    mats = [m if to_right else m.T for *_, m in blocks]  # the rows of each matrix get the isometry
+    floor2 = (SVD_FLOOR ** 2) * max(float(np.sum(m * m)) for m in mats)
+    reduced = []
+    for m in mats:
+        if m.shape[0] > m.shape[1]:  # the Gram matrix on the shorter side: m = q r, decompose r
+            q, r = np.linalg.qr(m)
+            reduced.append((q, r))
+        else:
+            reduced.append((None, m))
+    tops = [_gram_top(r, chi, floor2) for _, r in reduced]
+    lam_all = np.concatenate([lam for (_, lam), _ in tops])
+    order = np.argsort(-lam_all, kind="stable")
+    lam_sorted = np.clip(lam_all[order], 0.0, None)
+    if lam_sorted.size == 0 or not lam_sorted[0] > 0:  # pragma: no cover - theta has unit weight
+        return None
+    k = keep_count(np.sqrt(lam_sorted), chi, cutoff)
+    kept = np.zeros(lam_all.size, dtype=bool)
+    kept[order[:k]] = True
+    disc = float(np.sum(lam_sorted[k:])) + sum(rest for _, rest in tops)
+    parts, off = [], 0
+    for (q, r), ((vec, lam), _) in zip(reduced, tops):
+        sel = kept[off:off + lam.size]
+        off += lam.size
+        v = vec[:, sel]
+        w = v.T @ r  # the exact projection of the block on the kept vectors: no division by singular values
+        if q is not None:
+            v = q @ v
+        parts.append((v, w) if to_right else (w.T, v.T))
+    return parts, disc
+
+
+def _assemble(shape, blocks, parts, graded):
+    """Put the blockwise factors into full ``left (m, k)``, ``right (k, n)``; labels of the kept bond index."""
+    if not graded:
+        return parts[0][0], parts[0][1], None
+    ks = [left.shape[1] for left, _ in parts]
+    k = sum(ks)
+    left = np.zeros((shape[0], k))
+    right = np.zeros((k, shape[1]))
+    lab = np.empty(k, dtype=np.int8)
+    off = 0
+    for (p, r, c, _), (lp, rp), kp in zip(blocks, parts, ks):
+        left[r, off:off + kp] = lp
+        right[off:off + kp, c] = rp
+        lab[off:off + kp] = p
+        off += kp
+    if k == 0:  # pragma: no cover - theta has unit weight, some block is nonzero
+        raise RuntimeError("empty truncation")
+    return left, right, lab
 
 
 def _svd(m: np.ndarray):
@@ -419,30 +578,6 @@ def _svd(m: np.ndarray):
         import scipy.linalg
 
         return scipy.linalg.svd(m, full_matrices=False, lapack_driver="gesvd")
-
-
-def _graded_svd(m: np.ndarray, row_par: np.ndarray, col_par: np.ndarray):
-    """SVD of a matrix that is block diagonal in Z2 parity (rows of parity p only meet columns of parity p).
-
-    Returns u, s (descending), vt like ``numpy.linalg.svd`` and the parity label of every singular vector.
-    """
-    rmask = (row_par == 0, row_par == 1)
-    cmask = (col_par == 0, col_par == 1)
-    parts = [_svd(m[rmask[p]][:, cmask[p]]) if rmask[p].any() and cmask[p].any() else None for p in (0, 1)]
-    k = [0 if x is None else x[1].size for x in parts]
-    u = np.zeros((m.shape[0], k[0] + k[1]))
-    vt = np.zeros((k[0] + k[1], m.shape[1]))
-    s = np.empty(k[0] + k[1])
-    lab = np.zeros(k[0] + k[1], dtype=np.int8)
-    lab[k[0]:] = 1
-    for p, off in ((0, 0), (1, k[0])):
-        if parts[p] is not None:
-            up, sp, vp = parts[p]
-            u[rmask[p], off:off + k[p]] = up
-            vt[off:off + k[p], cmask[p]] = vp
-            s[off:off + k[p]] = sp
-    order = np.argsort(-s, kind="stable")
-    return u[:, order], s[order], vt[order], lab[order]
 
 
 def _graded_qr(m: np.ndarray, row_par: np.ndarray, col_lab: np.ndarray):

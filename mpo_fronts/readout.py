@@ -247,7 +247,7 @@ def read_operator(arrays: Sequence[np.ndarray], center: int | None = None, state
 
 def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: float = 0.05, order: int = 2,
                 cutoff: float = 0.0, state: str | None = None, chunk: int | None = None,
-                progress=None) -> OtocResult:
+                progress=None, truncation: str = "svd") -> OtocResult:
     """OTOCs C(r, t) of W at ``site`` with every probe site r, by Heisenberg-picture MPO TEBD.
 
     Parameters
@@ -260,7 +260,7 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
         Site of W.
     times : sequence of float
         Strictly increasing output times (>= 0, units 1/J); any spacing.
-    chi, dt, order, cutoff
+    chi, dt, order, cutoff, truncation
         Engine settings (see :class:`mpo_fronts.evolve.OperatorTEBD`).
     state : str, optional
         None for infinite temperature, or a basis-state bitstring of length L ('0' = spin up) for the
@@ -284,7 +284,7 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
     from .evolve import DEFAULT_CHUNK, SVD_FLOOR, OperatorTEBD
 
     eng = OperatorTEBD(chain, w=w, site=site, chi=chi, dt=dt, order=order, cutoff=cutoff,
-                       chunk=chunk or DEFAULT_CHUNK)
+                       chunk=chunk or DEFAULT_CHUNK, truncation=truncation)
     if state is not None:
         check_bits(state, chain.L)
     ts = np.asarray(times, dtype=float).reshape(-1)
@@ -303,6 +303,7 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
         disc[k], maxb[k] = e.discarded_weight, e.max_bond
     meta = {"method": "mpo_tebd", "w": eng.w, "site": eng.site, "chi": eng.chi, "dt": eng.dt,
             "max_step": eng.max_step, "order": eng.order, "cutoff": eng.cutoff, "state": state,
-            "svd_floor": SVD_FLOOR, "graded": eng.graded}
+            "svd_floor": SVD_FLOOR, "graded": eng.graded, "truncation": eng.truncation,
+            "splits": dict(eng.splits)}
     return OtocResult(times=ts, weights=weights, right_weight=right, discarded_weight=disc, max_bond=maxb,
                       state_otoc=sotoc, meta=meta)

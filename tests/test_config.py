@@ -51,7 +51,8 @@ def test_defaults_are_resolved():
     assert d["model"] == {"kind": "xxz", "L": 6, "J": 1.0, "delta": 1.0, "W": 0.0}
     assert d["operators"] == {"w": "Z", "site": 0, "v": ["X", "Y", "Z"]}
     assert d["state"] == {"kind": "infinite_temperature"}
-    assert d["engine"] == {"chi": 64, "dt": 0.05, "order": 2, "cutoff": 0.0, "chunk": 20}
+    assert d["engine"] == {"chi": 64, "dt": 0.05, "order": 2, "cutoff": 0.0, "chunk": 20,
+                           "truncation": "svd"}
     assert d["ensemble"] == {"realizations": 1, "seed": 0}
     assert d["run"]["checkpoints"] is True and d["run"]["checkpoint_interval"] > 0
     ising = parse_description({"model": {"kind": "mixed_field_ising", "L": 6}, "times": {"values": [1.0]}})
@@ -82,6 +83,7 @@ MALFORMED = [
     (dict(engine__order=3), "engine.order"),
     (dict(engine__cutoff=1.5), "engine.cutoff"),
     (dict(engine__chunk=0), "engine.chunk"),
+    (dict(engine__truncation="qr"), "engine.truncation"),
     (dict(engine__cutof=1e-12), "engine.cutof"),
     (dict(model__kind="heisenberg"), "model.kind"),
     (dict(model__kind=None), "model.kind"),
@@ -222,6 +224,7 @@ def test_fingerprint_ignores_how_not_what():
     a = parse_description(base())
     assert a.fingerprint() == parse_description(base(run__checkpoint_interval=7.0)).fingerprint()
     assert a.fingerprint() == parse_description(base(ensemble__realizations=9)).fingerprint()
+    assert a.fingerprint() != parse_description(base(engine__truncation="eigh")).fingerprint()
     assert a.fingerprint() != parse_description(base(engine__chi=17)).fingerprint()
     assert a.fingerprint() != parse_description(base(ensemble__seed=1)).fingerprint()
 
