@@ -5,6 +5,8 @@ import itertools
 import numpy as np
 import pytest
 
+import mpo_fronts as mf
+from mpo_fronts.errors import InputError
 from mpo_fronts.models import PAULI
 from mpo_fronts.readout import (ANTICOMMUTES, otoc_from_weights, pauli_weights, product_state_otoc, read_operator,
                                 right_weights)
@@ -106,3 +108,21 @@ def test_anticommutation_table():
         for a in range(4):
             comm = PAULI[a] @ PAULI[vi] + PAULI[vi] @ PAULI[a]
             assert ANTICOMMUTES[v][a] == bool(np.allclose(comm, 0))
+
+
+def test_evolve_otoc_limits_blas_threads_during_the_evolution():
+    from threadpoolctl import threadpool_info, threadpool_limits
+
+    seen = []
+
+    def progress(t):
+        seen.append(max(p["num_threads"] for p in threadpool_info()))
+
+    with threadpool_limits(limits=2):
+        before = max(p["num_threads"] for p in threadpool_info())
+        res = mf.evolve_otoc(mf.xxz_chain(6, W=1.0, seed=1), times=[0.2, 0.4], chi=8, progress=progress)
+        after = max(p["num_threads"] for p in threadpool_info())
+    assert seen and set(seen) == {1} and after == before
+    assert res.meta["blas_threads"] == 1 and res.meta["truncation"] == "svd"
+    with pytest.raises(InputError, match="threads"):
+        mf.evolve_otoc(mf.xxz_chain(6), times=[0.2], threads=0)

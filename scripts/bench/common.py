@@ -104,17 +104,21 @@ def warm_up() -> None:
     engine_otoc(small, "Z", 4, [0.2], chi=8, dt=0.1)
 
 
-def side_by_side(chain, site: int, times, chi: int, dt: float, order: int = 2) -> dict:
-    """The engine and the plain quimb TEBD on the same chain, times, chi and order: times, ratios, max |dC|."""
-    e = engine_otoc(chain, "Z", site, times, chi=chi, dt=dt, order=order)
-    q = quimb_tebd_otoc(chain, "Z", site, times, chi=chi, dt=dt, order=order)
+def side_by_side(chain, site: int, times, chi: int, dt: float, order: int = 2, truncation: str = "svd",
+                 peer: dict | None = None) -> dict:
+    """The engine and the plain quimb TEBD on the same chain, times, chi and order: times, ratios, max |dC|.
+
+    ``peer``: a quimb run of the same settings to reuse (``row["peer"]`` of an earlier call).
+    """
+    e = engine_otoc(chain, "Z", site, times, chi=chi, dt=dt, order=order, truncation=truncation)
+    q = peer if peer is not None else quimb_tebd_otoc(chain, "Z", site, times, chi=chi, dt=dt, order=order)
     res = e["result"]
     t_q = q["t_evolve"] + q["t_readout"]
     return {"chi": chi, "t_engine_s": e["t_total"], "t_quimb_s": t_q, "t_quimb_evolve_s": q["t_evolve"],
             "ratio": t_q / e["t_total"], "ratio_evolve_only": q["t_evolve"] / e["t_total"],
             "max|dC|": max(np.abs(res.otoc(v) - q["otoc"][v]).max() for v in "XZ"),
             "engine_discarded": float(res.discarded_weight[-1]), "engine_max_bond": int(res.max_bond[-1]),
-            "quimb_max_bond": q["max_bond"][-1]}
+            "quimb_max_bond": q["max_bond"][-1], "truncation": truncation, "peer": q}
 
 
 def limit_blas(threads: int = 1):

@@ -2,16 +2,18 @@
 
 Usage:  python scripts/bench/floor.py [--L 32] [--chis 32 64 128] [--t0 4] [--steps 5] [--no-e2e | --e2e-only]
 
-For each chain (mixed-field Ising; random-field Heisenberg W = 1, graded and ungraded) and chi, the engine
-(W = Z at the centre, dt = 0.05, order 2) is evolved to t0, where the central bonds sit at chi; then the wall
-time of single Trotter steps is measured (median of --steps) and compared with the floor: the sum, over the
-gates of one step, of the time numpy.linalg.svd (gesdd) takes on the very matrices the engine decomposes
-(captured during one extra step; in the graded engine these are the Z2 blocks). The same captured matrices are
-also decomposed with cheaper truncations (scipy gesvd, quimb's svd_via_eig Gram-matrix route and its randomized
-svd_rand_truncated, both limited to chi), with their error against the optimal rank-k truncation.
-An end-to-end check (unless --no-e2e) runs the ungraded engine with each alternative plugged in at
-L = 32, chi = 64, t = 4 and reports max |dC| against the gesdd engine, and the largest relative error where 1e-10 < C < 1e-4 (ahead of the
-front). Writes data/benchmarks/floor.json (floor_e2e.json with --e2e-only).
+For each chain (mixed-field Ising; random-field Heisenberg W = 1, graded and ungraded), truncation route
+(svd, eigh) and chi, the engine (W = Z at the centre, dt = 0.05, order 2) is evolved to t0, where the central
+bonds sit at chi; then the wall time of single Trotter steps is measured (median of --steps) and compared with
+the floor: the sum, over the gates of one step, of the time numpy.linalg.svd (gesdd) takes on matrices of the
+same shapes, the very gate matrices the engine splits (captured during one extra step). For the graded engine
+the SVDs of their Z2 blocks (what the graded SVD route decomposes) are reported too ("block floor"). The
+captured blocks are also decomposed with other routines (scipy gesvd, quimb's svd_via_eig Gram-matrix route and
+its randomized svd_rand_truncated, both limited to chi), with their error against the optimal rank-k
+truncation. An end-to-end check (unless --no-e2e) runs the ungraded engine with each alternative plugged in,
+and with the engine's own truncation='eigh', at L = 32, chi = 64, t = t0/4, t0/2, t0, and reports max |dC|
+against the gesdd engine and the largest relative error where 1e-10 < C < 1e-4 (ahead of the front).
+Writes data/benchmarks/floor.json (floor_e2e.json with --e2e-only).
 Single BLAS thread (set OPENBLAS_NUM_THREADS to override). A benchmark, not a test.
 """
 
@@ -89,8 +91,9 @@ def time_call(fn, *args, repeat=3):
 
 
 # ------------------------------------------------------------------------------------------ measurement
-def measure(chain, chi, t0, steps, graded, dt=0.05):
-    eng = ev.OperatorTEBD(chain, w="Z", site=chain.L // 2, chi=chi, dt=dt, order=2, graded=graded)
+def measure(chain, chi, t0, steps, graded, truncation="svd", dt=0.05):
+    eng = ev.OperatorTEBD(chain, w="Z", site=chain.L // 2, chi=chi, dt=dt, order=2, graded=graded,
+                          truncation=truncation)
     times = t0 + dt * np.arange(steps + 2)
     gen = eng.run(times)
     next(gen)  # evolve to t0
@@ -99,65 +102,75 @@ def measure(chain, chi, t0, steps, graded, dt=0.05):
         t_a = time.perf_counter()
         next(gen)
         step_times.append(time.perf_counter() - t_a)
-    captured = []
-    original = ev._svd
+    captured = []  # (full gate matrix, its Z2 blocks) of one more step
+    original = ev.split
 
-    def recorder(m):
-        captured.append(m.copy())
-        return original(m)
+    def recorder(theta, chi_, cutoff, to_right, row_par=None, col_par=None, truncation="svd"):
+        blocks = [m.copy() for *_, m in ev._blocks(theta, row_par, col_par)]
+        captured.append((theta.copy(), blocks))
+        return original(theta, chi_, cutoff, to_right, row_par, col_par, truncation)
 
-    ev._svd = recorder
+    ev.split = recorder
     try:
         next(gen)
     finally:
-        ev._svd = original
+        ev.split = original
+    dense = sum(time_call(_gesdd, th, chi) for th, _ in captured)
+    blocks = [m for _, bl in captured for m in bl]
     keep = [min(chi, int(np.count_nonzero(s > ev.SVD_FLOOR * s[0]))) for s in
-            (np.linalg.svd(m, compute_uv=False) for m in captured)]
+            (np.linalg.svd(m, compute_uv=False) for m in blocks)]
     floors, errors = {}, {}
     for name, fn in METHODS.items():
-        floors[name] = sum(time_call(fn, m, chi) for m in captured)
+        floors[name] = sum(time_call(fn, m, chi) for m in blocks)
         worst = 0.0
-        for m, k in zip(captured, keep):
+        for m, k in zip(blocks, keep):
             s_opt = np.linalg.svd(m, compute_uv=False)
             u, s, vt = fn(m, chi)
             u, s, vt = u[:, :k], s[:k], vt[:k]
             err = np.sum((m - (u * s) @ vt) ** 2)  # squared Frobenius error of the rank-k truncation
             worst = max(worst, abs(err - np.sum(s_opt[k:] ** 2)))
         errors[name] = worst
-    shapes = sorted({m.shape for m in captured})
-    return {"step_s": float(np.median(step_times)), "floor_s": floors, "extra_error": errors,
-            "n_svd": len(captured), "shapes": [list(s) for s in shapes[-3:]], "max_bond": eng.max_bond,
-            "discarded": eng.discarded_weight}
+    shapes = sorted({th.shape for th, _ in captured})
+    return {"step_s": float(np.median(step_times)), "dense_floor_s": dense, "floor_s": floors,
+            "extra_error": errors, "n_gates": len(captured), "n_blocks": len(blocks),
+            "shapes": [list(s) for s in shapes[-3:]], "max_bond": eng.max_bond, "discarded": eng.discarded_weight,
+            "splits": dict(eng.splits)}
+
+
+def _run_engine(chain, chi, times, truncation="svd", dt=0.05):
+    t_a = time.perf_counter()
+    eng = ev.OperatorTEBD(chain, w="Z", site=chain.L // 2, chi=chi, dt=dt, order=2, graded=False,
+                          truncation=truncation)
+    res = {v: [] for v in "XZ"}
+    for k, e in eng.run(times):
+        w = mf.readout.pauli_weights(e.arrays, e.center)
+        for v in res:
+            res[v].append(mf.readout.otoc_from_weights(w, v))
+    return {v: np.array(x) for v, x in res.items()}, time.perf_counter() - t_a, eng.discarded_weight
 
 
 def end_to_end(chain, chi, t, dt=0.05):
-    """Run the ungraded engine with each decomposition plugged in; C and time against gesdd."""
+    """Run the ungraded engine with each decomposition plugged in, and with truncation='eigh'; C and time
+    against the gesdd engine."""
     out = []
-    ref = None
-    original = ev._svd
     times = [t / 4, t / 2, t]
+    original = ev._svd
+    runs = []
     for name, fn in METHODS.items():
         ev._svd = _with_tail(fn, chi)
         try:
-            t_a = time.perf_counter()
-            eng = ev.OperatorTEBD(chain, w="Z", site=chain.L // 2, chi=chi, dt=dt, order=2, graded=False)
-            res = {v: [] for v in "XZ"}
-            for k, e in eng.run(times):
-                w = mf.readout.pauli_weights(e.arrays, e.center)
-                for v in res:
-                    res[v].append(mf.readout.otoc_from_weights(w, v))
-            wall = time.perf_counter() - t_a
+            runs.append((name, *_run_engine(chain, chi, times, dt=dt)))
         finally:
             ev._svd = original
-        C = {v: np.array(x) for v, x in res.items()}
-        if ref is None:
-            ref, t_ref = C, wall
-        dC = max(np.abs(C[v] - ref[v]).max() for v in C)
-        # ahead of the front (1e-10 < C < 1e-4 in the reference) the relative error matters
-        tip = (ref["Z"] > 1e-10) & (ref["Z"] < 1e-4)
+    runs.append(("engine truncation='eigh'", *_run_engine(chain, chi, times, "eigh", dt=dt)))
+    _, ref, t_ref, _ = runs[0]
+    # ahead of the front (1e-10 < C < 1e-4 in the reference) the relative error matters
+    tip = (ref["Z"] > 1e-10) & (ref["Z"] < 1e-4)
+    for name, C, wall, disc in runs:
+        dC = max(float(np.abs(C[v] - ref[v]).max()) for v in C)
         rel = float(np.max(np.abs(C["Z"][tip] - ref["Z"][tip]) / ref["Z"][tip])) if tip.any() else 0.0
         out.append({"method": name, "wall_s": wall, "speedup": t_ref / wall, "max|dC|": dC,
-                    "max_rel_dC_ahead": rel, "discarded": eng.discarded_weight})
+                    "max_rel_dC_ahead": rel, "n_ahead": int(tip.sum()), "discarded": disc})
     return out
 
 
@@ -173,39 +186,47 @@ def main(argv=None) -> None:
     import quimb.tensor  # noqa: F401 - load all BLAS users before limiting threads
     _blas = limit_blas(int(os.environ["OPENBLAS_NUM_THREADS"]))  # noqa: F841
 
-    chains = [("mixed-field Ising", mf.mixed_field_ising_chain(args.L), False),
-              ("Heisenberg W=1 graded", mf.xxz_chain(args.L, W=1.0, seed=1), True),
-              ("Heisenberg W=1 ungraded", mf.xxz_chain(args.L, W=1.0, seed=1), False)]
+    heis = mf.xxz_chain(args.L, W=1.0, seed=1)
+    mfi = mf.mixed_field_ising_chain(args.L)
+    configs = [("mixed-field Ising", mfi, False, "svd"), ("mixed-field Ising", mfi, False, "eigh"),
+               ("Heisenberg W=1 graded", heis, True, "svd"), ("Heisenberg W=1 graded", heis, True, "eigh"),
+               ("Heisenberg W=1 ungraded", heis, False, "svd")]
     rows = []
-    for label, chain, graded in ([] if args.e2e_only else chains):
+    for label, chain, graded, truncation in ([] if args.e2e_only else configs):
         for chi in args.chis:
-            m = measure(chain, chi, args.t0, args.steps, graded)
-            g = m["floor_s"]["gesdd"]
-            row = {"chain": label, "chi": chi, "max_bond": m["max_bond"], "n_svd": m["n_svd"],
-                   "step_s": m["step_s"], "svd_floor_s": g, "step/floor": m["step_s"] / g}
+            m = measure(chain, chi, args.t0, args.steps, graded, truncation)
+            g, d = m["floor_s"]["gesdd"], m["dense_floor_s"]
+            row = {"chain": label, "truncation": truncation, "chi": chi, "max_bond": m["max_bond"],
+                   "n_gates": m["n_gates"], "n_blocks": m["n_blocks"], "step_s": m["step_s"],
+                   "dense_floor_s": d, "step/dense_floor": m["step_s"] / d, "block_floor_s": g,
+                   "step/block_floor": m["step_s"] / g, "splits": m["splits"]}
             for name in METHODS:
                 if name != "gesdd":
                     row[f"{name.split()[0]}/gesdd"] = m["floor_s"][name] / g
                     row[f"{name.split()[0]}_err"] = m["extra_error"][name]
             row["largest_shapes"] = m["shapes"]
             rows.append(row)
-            print(f"{label}, chi {chi}: step {m['step_s'] * 1e3:.1f} ms, SVD floor {g * 1e3:.1f} ms, "
-                  f"ratio {m['step_s'] / g:.2f}", flush=True)
-    cols = ["chain", "chi", "max_bond", "n_svd", "step_s", "svd_floor_s", "step/floor", "gesvd/gesdd",
-            "eig/gesdd", "eig_err", "randomized/gesdd", "randomized_err"]
+            print(f"{label} ({truncation}), chi {chi}: step {m['step_s'] * 1e3:.1f} ms, dense SVD floor "
+                  f"{d * 1e3:.1f} ms ({m['step_s'] / d:.2f}x), block SVD floor {g * 1e3:.1f} ms "
+                  f"({m['step_s'] / g:.2f}x)", flush=True)
+    cols = ["chain", "truncation", "chi", "max_bond", "n_gates", "step_s", "dense_floor_s", "step/dense_floor",
+            "block_floor_s", "step/block_floor", "gesvd/gesdd", "eig/gesdd", "eig_err", "randomized/gesdd",
+            "randomized_err"]
     print()
-    print(f"one Trotter step at t0 = {args.t0}, L = {args.L} (floor: numpy gesdd on the captured matrices; "
-          "*_err: largest excess squared truncation error over the optimal rank-k truncation)")
+    print(f"one Trotter step at t0 = {args.t0}, L = {args.L} (dense floor: numpy gesdd on the captured full gate "
+          "matrices; block floor: on their Z2 blocks, = dense when ungraded; *_err: largest excess squared "
+          "truncation error over the optimal rank-k truncation)")
     print(table(rows, cols))
     e2e = []
     if not args.no_e2e:
-        for label, chain in (("mixed-field Ising", mf.mixed_field_ising_chain(args.L)),
-                             ("Heisenberg W=1", mf.xxz_chain(args.L, W=1.0, seed=1))):
-            for r in end_to_end(chain, 64, 4.0):
+        for label, chain in (("mixed-field Ising", mfi), ("Heisenberg W=1", heis)):
+            for r in end_to_end(chain, 64, args.t0):
                 e2e.append({"chain": label, "chi": 64, **r})
         print()
-        print(f"end to end, ungraded engine with each decomposition, L = {args.L}, chi = 64, t = 1, 2, 4:")
-        print(table(e2e, ["chain", "method", "wall_s", "speedup", "max|dC|", "max_rel_dC_ahead", "discarded"]))
+        print(f"end to end, ungraded engine with each decomposition, L = {args.L}, chi = 64, "
+              f"t = {args.t0 / 4:g}, {args.t0 / 2:g}, {args.t0:g}:")
+        print(table(e2e, ["chain", "method", "wall_s", "speedup", "max|dC|", "max_rel_dC_ahead", "n_ahead",
+                          "discarded"]))
     name = "floor_e2e" if args.e2e_only else "floor"
     path = write_json(name, {"settings": vars(args), "rows": rows, "end_to_end": e2e})
     print(f"wrote {path}")

@@ -1,6 +1,7 @@
 """Benchmark 1: the engine against a plain complex TEBD of the vectorised operator with quimb's TEBD class.
 
 Usage:  python scripts/bench/vs_tebd.py [--L 32] [--chis 32 64 128] [--t 4] [--dt 0.05] [--chains mfi heis]
+                                       [--truncations svd eigh] [--name vs_tebd]
 
 Same chain, times (t/4, t/2, t), Trotter order (2), step and truncation (at most chi values, relative floor
 1e-13) in both; W = Z at the centre. Chains: mixed-field Ising (J, g, h) = (1, 1.05, 0.5) and random-field
@@ -38,6 +39,9 @@ def main(argv=None) -> None:
     ap.add_argument("--t", type=float, default=4.0)
     ap.add_argument("--dt", type=float, default=0.05)
     ap.add_argument("--chains", nargs="+", default=list(CHAINS), choices=list(CHAINS))
+    ap.add_argument("--truncations", nargs="+", default=["svd"], choices=["svd", "eigh"],
+                    help="engine truncation routes, each against the same quimb run")
+    ap.add_argument("--name", default="vs_tebd", help="JSON file name under data/benchmarks/")
     args = ap.parse_args(argv)
     import quimb.tensor  # noqa: F401
     _blas = limit_blas(int(os.environ["OPENBLAS_NUM_THREADS"]))  # noqa: F841
@@ -50,19 +54,22 @@ def main(argv=None) -> None:
         label, make = CHAINS[key]
         chain = make(args.L)
         for chi in args.chis:
-            row = side_by_side(chain, site, times, chi, args.dt)
-            row.update(chain=label, L=args.L,
-                       graded=bool(chain.conserves_sz and chi >= getattr(mf.evolve, "GRADED_MIN_CHI", 10**9)))
-            rows.append(row)
-            t_e, t_q, dC = row["t_engine_s"], row["t_quimb_s"], row["max|dC|"]
-            print(f"{label}, chi {chi}: engine {t_e:.2f} s, quimb {t_q:.2f} s, "
-                  f"ratio {t_q / t_e:.2f}x, max|dC| {dC:.1e}", flush=True)
+            peer = None
+            for truncation in args.truncations:
+                row = side_by_side(chain, site, times, chi, args.dt, truncation=truncation, peer=peer)
+                peer = row.pop("peer")
+                row.update(chain=label, L=args.L,
+                           graded=bool(chain.conserves_sz and chi >= getattr(mf.evolve, "GRADED_MIN_CHI", 10**9)))
+                rows.append(row)
+                t_e, t_q, dC = row["t_engine_s"], row["t_quimb_s"], row["max|dC|"]
+                print(f"{label}, chi {chi}, engine truncation {truncation}: engine {t_e:.2f} s, quimb {t_q:.2f} s, "
+                      f"ratio {t_q / t_e:.2f}x, max|dC| {dC:.1e}", flush=True)
     print()
     print(f"L = {args.L}, W = Z at site {site}, times {times}, dt = {args.dt}, order 2, "
           f"BLAS threads {os.environ['OPENBLAS_NUM_THREADS']}")
-    print(table(rows, ["chain", "chi", "t_engine_s", "t_quimb_s", "ratio", "ratio_evolve_only", "max|dC|",
+    print(table(rows, ["chain", "chi", "truncation", "t_engine_s", "t_quimb_s", "ratio", "ratio_evolve_only", "max|dC|",
                        "engine_discarded", "engine_max_bond", "quimb_max_bond"]))
-    path = write_json("vs_tebd", {"settings": vars(args), "site": site, "times": times, "rows": rows})
+    path = write_json(args.name, {"settings": vars(args), "site": site, "times": times, "rows": rows})
     print(f"wrote {path}")
 
 
