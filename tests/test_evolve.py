@@ -359,3 +359,24 @@ def test_eigh_engine_equals_svd_engine(kind, graded):
 def test_truncation_must_be_known():
     with pytest.raises(InputError, match="truncation"):
         OperatorTEBD(mf.xxz_chain(6), truncation="qr")
+
+
+def test_keep_freed_memory_leaves_results_bit_identical():
+    # optimization check: the allocator setting changes no arithmetic; the same run in two fresh processes,
+    # with and without it, gives bit-identical weights and ledgers
+    import subprocess
+    import sys
+
+    code = ("import numpy as np, mpo_fronts as mf, mpo_fronts.evolve as ev\n"
+            "e = ev.OperatorTEBD(mf.xxz_chain(10, W=1.0, seed=2), w='Z', site=5, chi=32, dt=0.05)\n"
+            "w = [mf.readout.pauli_weights(x.arrays).copy() for _, x in e.run([0.5, 1.0])]\n"
+            "print(ev.keep_freed_memory(), np.array(w).tobytes().hex(), repr(e.discarded_weight))\n")
+    out = {}
+    for flag in ("0", "1"):
+        env = {**__import__("os").environ, "MPO_FRONTS_KEEP_MEMORY": flag, "OPENBLAS_NUM_THREADS": "1"}
+        res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, check=True)
+        out[flag] = res.stdout.split()
+    assert out["0"][0] == "False"
+    if sys.platform.startswith("linux"):
+        assert out["1"][0] == "True"
+    assert out["0"][1:] == out["1"][1:]
