@@ -193,6 +193,7 @@ def test_result_file_contents(small_run):
         assert json.loads(f.attrs["description"]) == json.loads((small_run / "run.json").read_text())["description"]
         eng = json.loads(f.attrs["engine"])
         assert eng["chi"] == 8 and eng["order"] == 2 and eng["dt"] == 0.1 and eng["max_step"] <= 0.1
+        assert eng["truncation"] == "svd" and eng["graded"] is False  # how the truncation was done
         assert f.attrs["conventions"] == mf.CONVENTIONS
         np.testing.assert_array_equal(f["seed"][()], [1, 11])
         assert set(f["otoc"]) == {"X", "Z"} and f["couplings"].shape == (5,)
