@@ -56,6 +56,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from .errors import ConfigError
+from .evolve import TRUNCATIONS
 from .models import Chain, mixed_field_ising_chain, xxz_chain
 
 __all__ = ["RunDescription", "Realization", "read_description", "parse_description", "realization_rng",
@@ -299,7 +300,7 @@ def _parse_engine(e: dict) -> dict:
         raise ConfigError("engine.cutoff", f"expected a number in [0, 1) (discarded weight per truncation), got {cutoff}")
     chunk = _int("engine.chunk", e.get("chunk", 20), 1, "a positive integer (Trotter steps per block)")
     truncation = e.get("truncation", "svd")
-    if truncation not in ("svd", "eigh"):
+    if truncation not in TRUNCATIONS:
         raise ConfigError("engine.truncation", f'expected "svd" or "eigh" (how gates are truncated), got {truncation!r}')
     return {"chi": chi, "dt": dt, "order": order, "cutoff": cutoff, "chunk": chunk, "truncation": truncation}
 

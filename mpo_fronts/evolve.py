@@ -17,9 +17,9 @@ requested times, dt and chunk, so a run resumed from a checkpoint repeats the un
 Truncation happens in every gate, with the orthogonality centre inside the two-site block (it is tracked and
 moved by QR, never by a full re-canonicalization): keep at most ``chi`` singular values and drop the smallest
 ones while their summed square stays below ``cutoff``; values below ``1e-13`` of the largest are numerical
-zeros and are always dropped. The decomposition (:func:`split`) is by default the eigendecomposition of the
-block's Gram matrix wherever the cut falls in the well-resolved part of its spectrum (2-3x cheaper than the SVD
-at chi >= 64), and the SVD everywhere else. Because every gate is orthogonal, the Frobenius weight sum_S c_S^2 only changes by
+zeros and are always dropped. The decomposition (:func:`split`) is LAPACK's SVD by default; the opt-in
+``truncation='eigh'`` uses eigendecompositions of the block's Gram matrix with refinement passes (faster only
+at chi >= 128). Because every gate is orthogonal, the Frobenius weight sum_S c_S^2 only changes by
 truncation: the ledger of dropped squared singular values equals the norm loss 1 - sum_S c_S^2 exactly.
 
 Gates are applied only on bonds that touch the support of W(t) (the sites that may carry non-identity
@@ -65,7 +65,8 @@ def keep_freed_memory() -> bool:
     Every gate allocates fresh temporaries of a few MiB (the two-site matrix, the gated matrix, SVD factors).
     By default glibc hands allocations above 128 KiB out as new mmap pages and returns them on free, so every
     gate pays page faults on first touch; on virtual machines these are slow (on this project's machine they
-    made the gate application 2x slower and the Z2-graded engine 1.28x slower end to end at chi = 64). Raising
+    made the gate application 2x slower and the Z2-graded engine 1.17x slower end to end at chi = 64,
+    ``scripts/bench_memory.py``). Raising
     the mmap and trim thresholds keeps that memory in the heap; results are bit-identical. The process then keeps
     up to 256 MiB of freed memory. Set ``MPO_FRONTS_KEEP_MEMORY=0`` to leave the allocator alone; a no-op
     where the C library is not glibc.
@@ -474,7 +475,7 @@ def split(theta: np.ndarray, chi: int, cutoff: float, to_right: bool, row_par=No
     matrix on the shorter side of each block (after a QR when the isometric side is the longer one), refined in
     the orthogonal complement until the kept spectrum is resolved (:func:`_gram_top`); the weight-carrying factor
     is the exact projection of theta on the kept vectors (no division by singular values), so the discarded
-    weight is the true norm loss. Matrices smaller than ``EIGH_MIN_DIM`` go to the SVD.
+    weight (the dropped eigenvalues) equals the norm loss to rounding. Matrices smaller than ``EIGH_MIN_DIM`` go to the SVD.
 
     Returns ``left, right, labels, discarded, route``: labels are the parities of the kept bond index (None when
     ungraded), discarded is the summed squared singular values (eigenvalues) dropped, route is 'eigh' or 'svd'.

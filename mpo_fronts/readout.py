@@ -13,7 +13,6 @@ every result as the discarded weight.
 
 from __future__ import annotations
 
-import contextlib
 from dataclasses import dataclass, field
 from typing import Any, Sequence
 
@@ -301,11 +300,9 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
     maxb = np.empty(n_t, dtype=int)
     sotoc = {v: np.empty((n_t, L)) for v in PROBES} if state is not None else {}
     hook = (lambda e: progress(e.t)) if progress is not None else None
-    with contextlib.ExitStack() as stack:
-        if threads is not None:
-            from threadpoolctl import threadpool_limits
+    from threadpoolctl import threadpool_limits
 
-            stack.enter_context(threadpool_limits(limits=threads))
+    with threadpool_limits(limits=threads):  # limits=None leaves the BLAS setting as it is
         for k, e in eng.run(ts, hook=hook):
             m = read_operator(e.arrays, e.center, state)
             weights[k], right[k] = m["weights"], m["right_weight"]
