@@ -105,10 +105,9 @@ def warm_up() -> None:
 
 
 def side_by_side(chain, site: int, times, chi: int, dt: float, order: int = 2, truncation: str = "svd",
-                 peer: dict | None = None) -> dict:
-    """The engine and the plain quimb TEBD on the same chain, times, chi and order: times, ratios, max |dC|.
-
-    ``peer``: a quimb run of the same settings to reuse (``row["peer"]`` of an earlier call).
+                 peer: dict | None = None) -> tuple[dict, dict]:
+    """The engine and the plain quimb TEBD on the same chain, times, chi and order: (row of times, ratios,
+    max |dC|; the quimb run). ``peer``: a quimb run of the same settings to reuse instead of a new one.
     """
     e = engine_otoc(chain, "Z", site, times, chi=chi, dt=dt, order=order, truncation=truncation)
     q = peer if peer is not None else quimb_tebd_otoc(chain, "Z", site, times, chi=chi, dt=dt, order=order)
@@ -118,7 +117,7 @@ def side_by_side(chain, site: int, times, chi: int, dt: float, order: int = 2, t
             "ratio": t_q / e["t_total"], "ratio_evolve_only": q["t_evolve"] / e["t_total"],
             "max|dC|": max(np.abs(res.otoc(v) - q["otoc"][v]).max() for v in "XZ"),
             "engine_discarded": float(res.discarded_weight[-1]), "engine_max_bond": int(res.max_bond[-1]),
-            "quimb_max_bond": q["max_bond"][-1], "truncation": truncation, "peer": q}
+            "quimb_max_bond": q["max_bond"][-1], "truncation": truncation}, q
 
 
 def limit_blas(threads: int = 1):

@@ -56,8 +56,7 @@ def main(argv=None) -> None:
         for chi in args.chis:
             peer = None
             for truncation in args.truncations:
-                row = side_by_side(chain, site, times, chi, args.dt, truncation=truncation, peer=peer)
-                peer = row.pop("peer")
+                row, peer = side_by_side(chain, site, times, chi, args.dt, truncation=truncation, peer=peer)
                 row.update(chain=label, L=args.L,
                            graded=bool(chain.conserves_sz and chi >= getattr(mf.evolve, "GRADED_MIN_CHI", 10**9)))
                 rows.append(row)
