@@ -17,7 +17,7 @@ Tables and keys (defaults in brackets)::
     [state]       kind ["infinite_temperature"] | "product" (needs bits = "0101...", '0' = spin up)
                   | "random_product" (samples [1] random basis states per realization)
     [times]       values = [...] (strictly increasing, >= 0), or start, stop, num, spacing ["log"] | "linear"
-    [engine]      chi [64], dt [0.05], order [2], cutoff [0.0], chunk [20], truncation ["svd"] (or "eigh")
+    [engine]      chi [64], dt [0.05], order [2], cutoff [0.0], chunk [20], truncation ["svd"] (or "rsvd", "eigh")
                   (see mpo_fronts.evolve.OperatorTEBD)
     [ensemble]    realizations [1 without randomness, else required], seed [0]
     [run]         label [""], checkpoints [true], checkpoint_interval [300.0 s], claim_timeout [600.0 s]
@@ -301,7 +301,7 @@ def _parse_engine(e: dict) -> dict:
     chunk = _int("engine.chunk", e.get("chunk", 20), 1, "a positive integer (Trotter steps per block)")
     truncation = e.get("truncation", "svd")
     if truncation not in TRUNCATIONS:
-        raise ConfigError("engine.truncation", f'expected "svd" or "eigh" (how gates are truncated), got {truncation!r}')
+        raise ConfigError("engine.truncation", f"expected one of {', '.join(map(repr, TRUNCATIONS))} (how gates are truncated), got {truncation!r}")
     return {"chi": chi, "dt": dt, "order": order, "cutoff": cutoff, "chunk": chunk, "truncation": truncation}
 
 

@@ -98,16 +98,17 @@ def test_every_executor_gives_identical_arrays(serial, tmp_path):
 
 
 def test_truncation_route_reaches_the_engine_and_the_files(tmp_path):
-    # engine.truncation = "eigh" is passed to every realization and recorded; results equal the SVD route's
-    # (tested in detail in test_evolve.py; 1e-8 here)
+    # engine.truncation = "eigh" / "rsvd" is passed to every realization and recorded; results equal the SVD
+    # route's (tested in detail in test_evolve.py; 1e-8 here)
     runs = {}
-    for tr in ("svd", "eigh"):
+    for tr in ("svd", "eigh", "rsvd"):
         d = small(model__L=10, engine__chi=16, ensemble__realizations=1, times__values=[1.0, 2.5],
                   engine__truncation=tr)
         run_ensemble(d, tmp_path / tr, progress="none")
         runs[tr] = mf.load(tmp_path / tr)
         assert runs[tr].engine["truncation"] == tr
     assert_same(runs["eigh"], runs["svd"], atol=1e-8)
+    assert_same(runs["rsvd"], runs["svd"], atol=1e-8)
 
 
 def test_resume_computes_only_what_is_missing(serial, tmp_path):

@@ -147,22 +147,29 @@ def test_cutoff_truncates_by_discarded_weight():
     assert max_dev(r_cut, r_full) < 2 * np.sqrt(eps)
 
 
-@pytest.mark.parametrize("graded", [False, True])
-def test_checkpoint_restore_reproduces_uninterrupted_run(graded):
-    chain = mf.xxz_chain(12, W=2.0, seed=1)
-    ts = [0.5, 1.0, 1.5, 2.0]
-    full = OperatorTEBD(chain, w="Z", site=0, chi=16, dt=0.05, chunk=5, graded=graded)
+@pytest.mark.parametrize("graded, truncation", [(False, "svd"), (True, "svd"), (False, "rsvd")])
+def test_checkpoint_restore_reproduces_uninterrupted_run(graded, truncation):
+    chain = mf.xxz_chain(12, W=2.0, seed=1) if truncation == "svd" else mf.mixed_field_ising_chain(12)
+    ts = [0.5, 1.0, 1.5, 2.0] if truncation == "svd" else [1.0, 2.0, 2.5, 3.0]  # rsvd: bonds saturated by then
+    kw = dict(w="Z", site=0 if truncation == "svd" else 6, chi=16, dt=0.05, chunk=5, graded=graded,
+              truncation=truncation)
+    full = OperatorTEBD(chain, **kw)
     for _ in full.run(ts):
         pass
+    if truncation == "rsvd":
+        assert full.splits["rsvd"] > 0
     saved = {}
-    part = OperatorTEBD(chain, w="Z", site=0, chi=16, dt=0.05, chunk=5, graded=graded)
-    for k, e in part.run(ts, hook=lambda e: saved.setdefault(e.blocks_done, e.state_dict()) if e.blocks_done == 3 else None):
+    part = OperatorTEBD(chain, **kw)
+    at = 3 if truncation == "svd" else 6  # mid-way between outputs 0 and 1
+    for k, e in part.run(ts, hook=lambda e: saved.setdefault(e.blocks_done, e.state_dict()) if e.blocks_done == at else None):
         if k == 1:
             break
-    again = OperatorTEBD(chain, w="Z", site=0, chi=16, dt=0.05, chunk=5, graded=graded)
-    again.load_state_dict(saved[3])  # mid-way between outputs 0 and 1
+    again = OperatorTEBD(chain, **kw)
+    again.load_state_dict(saved[at])
     rest = {k: e for k, e in again.run(ts)}
     assert min(rest) == 1  # continues after the blocks done; does not repeat output 0
+    if truncation == "rsvd":
+        assert again.splits["rsvd"] > 0  # the resumed part took the randomized route
     assert abs(again.discarded_weight - full.discarded_weight) < 1e-15
     assert all(np.array_equal(a, b) for a, b in zip(again.arrays, full.arrays))
 
@@ -354,6 +361,89 @@ def test_eigh_engine_equals_svd_engine(kind, graded):
     ahead = (a > 1e-10) & (a < 1e-4)
     assert ahead.sum() > 5 and (np.abs(a - b)[ahead] / a[ahead]).max() < 1e-7
     assert out["svd"][1] > 1e-5 and abs(out["eigh"][1] - out["svd"][1]) < 1e-8 * out["svd"][1]
+
+
+@pytest.mark.parametrize("to_right", [True, False])
+@pytest.mark.parametrize("decay", ["steep", "flat"])
+def test_rsvd_split_against_the_optimal_truncation(to_right, decay):
+    # check against numpy's SVD (LAPACK gesdd). steep: 12 decades, the sampled subspace is exact to rounding and
+    # the kept values and discarded weight are the optimal ones; flat (s_i = 0.97^i, the severe-truncation
+    # regime): the sampled subspace is approximate, and the ledger must still be the true error, no smaller than
+    # the optimal one and within 1 % of it (Halko et al. 2011, Thm 10.7 bounds the excess; measured 4e-5 here)
+    rng = np.random.default_rng(11 + to_right)
+    m, n, chi = 300, 260, 50
+    s = 10.0 ** (-0.15 * np.arange(n)) if decay == "steep" else 0.97 ** np.arange(n)
+    s /= np.sqrt(np.sum(s ** 2))
+    theta = _matrix(rng, m, n, s)
+    left, right, lab, disc, route = mf.evolve.split(theta, chi, 0.0, to_right, truncation="rsvd")
+    assert route == "rsvd" and lab is None and left.shape[1] == chi
+    iso = left.T @ left if to_right else right @ right.T
+    assert np.abs(iso - np.eye(chi)).max() < 1e-12
+    err = np.sum((theta - left @ right) ** 2)
+    optimal = np.sum(s[chi:] ** 2)
+    # the ledger is the error actually made; its sampled-out part |m|^2 - |B|^2 is a difference of unit-scale
+    # weights, exact to rounding of the total weight (1e-16), hence the absolute term
+    assert abs(err - disc) <= 1e-10 * disc + 1e-15
+    assert disc >= optimal * (1 - 1e-10) - 1e-15
+    kept = np.linalg.svd(left @ right, compute_uv=False)[:chi]
+    if decay == "steep":
+        assert disc <= optimal * (1 + 1e-8) + 1e-15
+        assert np.abs(kept / s[:chi] - 1).max() < 1e-6  # down to s = 3e-8 of the largest
+    else:
+        assert disc <= 1.01 * optimal
+        assert np.all(kept <= s[:chi] * (1 + 1e-12)) and np.abs(kept / s[:chi] - 1).max() < 1e-2
+
+
+def test_rsvd_split_graded_blocks_and_small_blocks():
+    # graded: each Z2 block large enough (both sides >= 2 (chi + RSVD_OVERSAMPLE)) is sampled, the others take
+    # the SVD; labels and kept values are the SVD route's; a small matrix takes the SVD route
+    rng = np.random.default_rng(8)
+    m, n, chi = 420, 380, 40
+    row_par = (np.arange(m) >= 160).astype(np.int8)  # block sizes 160 x 150 (sampled) and 260 x 230 (sampled)
+    col_par = (np.arange(n) >= 150).astype(np.int8)
+    theta = np.zeros((m, n))
+    for p in (0, 1):
+        r, c = np.flatnonzero(row_par == p), np.flatnonzero(col_par == p)
+        theta[np.ix_(r, c)] = _matrix(rng, r.size, c.size, 10.0 ** -np.linspace(p * 0.5, 10 + p, min(r.size, c.size)))
+    theta /= np.linalg.norm(theta)
+    out = {tr: mf.evolve.split(theta, chi, 0.0, True, row_par, col_par, truncation=tr) for tr in ("svd", "rsvd")}
+    assert out["rsvd"][4] == "rsvd" and out["svd"][4] == "svd"
+    assert sorted(out["rsvd"][2]) == sorted(out["svd"][2])
+    assert abs(out["rsvd"][3] - out["svd"][3]) <= 1e-8 * out["svd"][3]
+    sv = {tr: np.sort(np.linalg.svd(o[0] @ o[1], compute_uv=False)[: o[0].shape[1]]) for tr, o in out.items()}
+    assert np.abs(sv["rsvd"] / sv["svd"] - 1).max() < 1e-6
+    assert mf.evolve.split(np.random.default_rng(0).normal(size=(100, 200)), 40, 0.0, True, truncation="rsvd")[4] == "svd"
+
+
+@pytest.mark.parametrize("kind", ["mfi", "xxz"])
+def test_rsvd_engine_equals_svd_engine(kind):
+    # the randomized route gives the SVD engine's C and ledger: measured at these sizes |dw| 1e-10 (mixed-field
+    # Ising) and 5e-13 (Heisenberg), relative ahead of the front 2e-12, ledger relative 2e-10; tolerances leave
+    # 40x+ margin. At L = 32, chi = 64, 128 the changes are larger (README, Performance)
+    L, chi = 14, 16
+    chain = mf.mixed_field_ising_chain(L) if kind == "mfi" else mf.xxz_chain(L, delta=1.0, W=1.0, seed=3)
+    out = {}
+    for tr in ("svd", "rsvd"):
+        eng = OperatorTEBD(chain, w="Z", site=L // 2, chi=chi, dt=0.05, truncation=tr, graded=False)
+        w = np.array([mf.readout.pauli_weights(e.arrays).copy() for _, e in eng.run([1.5, 3.0])])
+        out[tr] = (w, eng.discarded_weight, dict(eng.splits))
+        assert abs(eng.discarded_weight - (1.0 - eng.norm2())) < 1e-12  # the ledger is the norm loss
+    assert out["rsvd"][2]["rsvd"] > 100 and out["svd"][2]["rsvd"] == 0
+    a, b = out["svd"][0], out["rsvd"][0]
+    assert np.abs(a - b).max() < 1e-8
+    ahead = (a > 1e-10) & (a < 1e-4)
+    assert ahead.sum() > 5 and (np.abs(a - b)[ahead] / a[ahead]).max() < 1e-9
+    assert out["svd"][1] > 1e-5 and abs(out["rsvd"][1] - out["svd"][1]) < 1e-8 * out["svd"][1]
+
+
+def test_rsvd_test_matrix_does_not_depend_on_history():
+    # the (n, l) test matrix is the same whether or not larger ones were drawn before: resumed runs and workers
+    # truncate every block identically
+    mf.evolve._TEST_MATRICES.clear()
+    small = mf.evolve._test_matrix(50, 20).copy()
+    mf.evolve._TEST_MATRICES.clear()
+    mf.evolve._test_matrix(500, 20)
+    assert np.array_equal(mf.evolve._test_matrix(50, 20), small)
 
 
 def test_truncation_must_be_known():
