@@ -73,7 +73,7 @@ def main(argv=None) -> None:
 
     rows = []
     for chi in args.chis:
-        row, _ = side_by_side(chain, site, times, chi, args.dt)
+        row, _, _ = side_by_side(chain, site, times, chi, args.dt)
         row["L"] = args.L
         rows.append(row)
         t_e, t_q, dC = row["t_engine_s"], row["t_quimb_s"], row["max|dC|"]

@@ -105,19 +105,28 @@ def warm_up() -> None:
 
 
 def side_by_side(chain, site: int, times, chi: int, dt: float, order: int = 2, truncation: str = "svd",
-                 peer: dict | None = None) -> tuple[dict, dict]:
+                 peer: dict | None = None, reference=None) -> tuple[dict, dict, object]:
     """The engine and the plain quimb TEBD on the same chain, times, chi and order: (row of times, ratios,
-    max |dC|; the quimb run). ``peer``: a quimb run of the same settings to reuse instead of a new one.
+    max |dC|; the quimb run; the engine's OtocResult). ``peer``: a quimb run of the same settings to reuse
+    instead of a new one. ``reference``: an engine OtocResult (another truncation route, same settings) to
+    compare with: max |dC| and the largest relative change where 1e-10 < C_Z < 1e-4 (ahead of the front).
     """
     e = engine_otoc(chain, "Z", site, times, chi=chi, dt=dt, order=order, truncation=truncation)
     q = peer if peer is not None else quimb_tebd_otoc(chain, "Z", site, times, chi=chi, dt=dt, order=order)
     res = e["result"]
     t_q = q["t_evolve"] + q["t_readout"]
-    return {"chi": chi, "t_engine_s": e["t_total"], "t_quimb_s": t_q, "t_quimb_evolve_s": q["t_evolve"],
+    row = {"chi": chi, "t_engine_s": e["t_total"], "t_quimb_s": t_q, "t_quimb_evolve_s": q["t_evolve"],
             "ratio": t_q / e["t_total"], "ratio_evolve_only": q["t_evolve"] / e["t_total"],
             "max|dC|": max(np.abs(res.otoc(v) - q["otoc"][v]).max() for v in "XZ"),
             "engine_discarded": float(res.discarded_weight[-1]), "engine_max_bond": int(res.max_bond[-1]),
-            "quimb_max_bond": q["max_bond"][-1], "truncation": truncation}, q
+            "quimb_max_bond": q["max_bond"][-1], "truncation": truncation}
+    if reference is not None:
+        row["max|dC| vs ref"] = max(float(np.abs(res.otoc(v) - reference.otoc(v)).max()) for v in "XZ")
+        ref = reference.otoc("Z")
+        tip = (ref > 1e-10) & (ref < 1e-4)
+        row["rel dC ahead vs ref"] = float(np.max(np.abs(res.otoc("Z")[tip] - ref[tip]) / ref[tip])) if tip.any() else 0.0
+        row["n_ahead"] = int(tip.sum())
+    return row, q, res
 
 
 def limit_blas(threads: int = 1):

@@ -3,15 +3,15 @@
 Usage:  python scripts/bench/floor.py [--L 32] [--chis 32 64 128] [--t0 4] [--steps 5] [--no-e2e | --e2e-only]
 
 For each chain (mixed-field Ising; random-field Heisenberg W = 1, graded and ungraded), truncation route
-(svd, eigh) and chi, the engine (W = Z at the centre, dt = 0.05, order 2) is evolved to t0, where the central
+(svd, eigh, rsvd) and chi, the engine (W = Z at the centre, dt = 0.05, order 2) is evolved to t0, where the central
 bonds sit at chi; then the wall time of single Trotter steps is measured (median of --steps) and compared with
 the floor: the sum, over the gates of one step, of the time numpy.linalg.svd (gesdd) takes on matrices of the
 same shapes, the very gate matrices the engine splits (captured during one extra step). For the graded engine
 the SVDs of their Z2 blocks (what the graded SVD route decomposes) are reported too ("block floor"). The
 captured blocks are also decomposed with other routines (scipy gesvd, quimb's svd_via_eig Gram-matrix route and
-its randomized svd_rand_truncated, both limited to chi), with their error against the optimal rank-k
-truncation. An end-to-end check (unless --no-e2e) runs the ungraded engine with each alternative plugged in,
-and with the engine's own truncation='eigh', at L = 32, chi = 64, t = t0/4, t0/2, t0, and reports max |dC|
+its randomized svd_rand_truncated, both limited to chi; the engine's randomized route), with their error
+against the optimal rank-k truncation. An end-to-end check (unless --no-e2e) runs the ungraded engine with each
+alternative plugged in, and with the engine's own truncation='eigh' and 'rsvd', at L = 32, chi = 64, t = t0/4, t0/2, t0, and reports max |dC|
 against the gesdd engine and the largest relative error where 1e-10 < C < 1e-4 (ahead of the front).
 Writes data/benchmarks/floor.json (floor_e2e.json with --e2e-only).
 Single BLAS thread (set OPENBLAS_NUM_THREADS to override). A benchmark, not a test.
@@ -64,7 +64,16 @@ def _rand(m, chi):
     return svd_rand_truncated(m, k, absorb=None, oversample=OVERSAMPLE, num_iterations=2, seed=0)
 
 
-METHODS = {"gesdd": _gesdd, "gesvd": _gesvd, "eig (quimb svd_via_eig)": _eig, "randomized (quimb rsvd)": _rand}
+def _engine_rsvd(m, chi):
+    """The engine's randomized route (evolve._rsvd) where it applies, gesdd elsewhere (as the engine does)."""
+    l = chi + ev.RSVD_OVERSAMPLE
+    if min(m.shape) < 2 * l:
+        return np.linalg.svd(m, full_matrices=False)
+    return ev._rsvd(m, l)[:3]
+
+
+METHODS = {"gesdd": _gesdd, "gesvd": _gesvd, "eig (quimb svd_via_eig)": _eig, "randomized (quimb rsvd)": _rand,
+           "rsvd (engine)": _engine_rsvd}
 
 
 def _with_tail(fn, chi):
@@ -150,19 +159,22 @@ def _run_engine(chain, chi, times, truncation="svd", dt=0.05):
 
 
 def end_to_end(chain, chi, t, dt=0.05):
-    """Run the ungraded engine with each decomposition plugged in, and with truncation='eigh'; C and time
-    against the gesdd engine."""
+    """Run the ungraded engine with each decomposition plugged in, and with truncation='eigh' and 'rsvd'; C and
+    time against the gesdd engine."""
     out = []
     times = [t / 4, t / 2, t]
     original = ev._svd
     runs = []
     for name, fn in METHODS.items():
+        if name == "rsvd (engine)":
+            continue  # run through the engine's own option below
         ev._svd = _with_tail(fn, chi)
         try:
             runs.append((name, *_run_engine(chain, chi, times, dt=dt)))
         finally:
             ev._svd = original
     runs.append(("engine truncation='eigh'", *_run_engine(chain, chi, times, "eigh", dt=dt)))
+    runs.append(("engine truncation='rsvd'", *_run_engine(chain, chi, times, "rsvd", dt=dt)))
     _, ref, t_ref, _ = runs[0]
     # ahead of the front (1e-10 < C < 1e-4 in the reference) the relative error matters
     tip = (ref["Z"] > 1e-10) & (ref["Z"] < 1e-4)
@@ -189,8 +201,9 @@ def main(argv=None) -> None:
     heis = mf.xxz_chain(args.L, W=1.0, seed=1)
     mfi = mf.mixed_field_ising_chain(args.L)
     configs = [("mixed-field Ising", mfi, False, "svd"), ("mixed-field Ising", mfi, False, "eigh"),
+               ("mixed-field Ising", mfi, False, "rsvd"),
                ("Heisenberg W=1 graded", heis, True, "svd"), ("Heisenberg W=1 graded", heis, True, "eigh"),
-               ("Heisenberg W=1 ungraded", heis, False, "svd")]
+               ("Heisenberg W=1 ungraded", heis, False, "svd"), ("Heisenberg W=1 ungraded", heis, False, "rsvd")]
     rows = []
     for label, chain, graded, truncation in ([] if args.e2e_only else configs):
         for chi in args.chis:
@@ -211,7 +224,7 @@ def main(argv=None) -> None:
                   f"({m['step_s'] / g:.2f}x)", flush=True)
     cols = ["chain", "truncation", "chi", "max_bond", "n_gates", "step_s", "dense_floor_s", "step/dense_floor",
             "block_floor_s", "step/block_floor", "gesvd/gesdd", "eig/gesdd", "eig_err", "randomized/gesdd",
-            "randomized_err"]
+            "randomized_err", "rsvd/gesdd", "rsvd_err"]
     print()
     print(f"one Trotter step at t0 = {args.t0}, L = {args.L} (dense floor: numpy gesdd on the captured full gate "
           "matrices; block floor: on their Z2 blocks, = dense when ungraded; *_err: largest excess squared "
