@@ -228,11 +228,14 @@ class OperatorTEBD:
     graded : bool, optional
         Use Z2-graded blocks (two half-size SVDs per gate instead of one); default: when the chain conserves
         total S^z and chi >= 32. Results equal the ungraded engine to rounding.
-    truncation : {'svd', 'eigh'}
-        How each gate is split and truncated (see :func:`split`): 'svd' (default, LAPACK gesdd) or 'eigh'
-        (Gram-matrix eigendecompositions with refinement passes for the small singular values; faster at
-        large chi; measured changes of C against 'svd' 1e-6 to 7e-5, see README, Performance). ``splits``
-        counts the gates that went each way (small matrices always go to the SVD).
+    truncation : {'svd', 'rsvd', 'eigh'}
+        How each gate is split and truncated (see :func:`split`): 'svd' (default, LAPACK gesdd, the optimal
+        truncation); 'rsvd' (randomized subspace iteration on saturated bonds, then the SVD of the projected
+        block; about 2x faster at chi >= 64 in chains without a conservation law, measured changes of C
+        against 'svd' 1e-7 or less at L = 32; the sampled-out weight is in the ledger); or 'eigh' (Gram-matrix
+        eigendecompositions with refinement passes for the small singular values; slightly faster at large
+        chi; measured changes of C against 'svd' 1e-6 to 7e-5, see README, Performance). ``splits`` counts
+        the gates that went each way (small matrices always go to the SVD).
 
     Examples
     --------

@@ -369,7 +369,8 @@ def test_rsvd_split_against_the_optimal_truncation(to_right, decay):
     # check against numpy's SVD (LAPACK gesdd). steep: 12 decades, the sampled subspace is exact to rounding and
     # the kept values and discarded weight are the optimal ones; flat (s_i = 0.97^i, the severe-truncation
     # regime): the sampled subspace is approximate, and the ledger must still be the true error, no smaller than
-    # the optimal one and within 1 % of it (Halko et al. 2011, Thm 10.7 bounds the excess; measured 4e-5 here)
+    # the optimal one and within 1 % of it (Halko et al. 2011, Thm 10.7 bounds the excess; measured 1e-3 and
+    # 3e-3 here, kept values 2e-3 and 6e-3 low; on the engine's gate matrices the excess is about 1e-7)
     rng = np.random.default_rng(11 + to_right)
     m, n, chi = 300, 260, 50
     s = 10.0 ** (-0.15 * np.arange(n)) if decay == "steep" else 0.97 ** np.arange(n)
@@ -391,7 +392,7 @@ def test_rsvd_split_against_the_optimal_truncation(to_right, decay):
         assert np.abs(kept / s[:chi] - 1).max() < 1e-6  # down to s = 3e-8 of the largest
     else:
         assert disc <= 1.01 * optimal
-        assert np.all(kept <= s[:chi] * (1 + 1e-12)) and np.abs(kept / s[:chi] - 1).max() < 1e-2
+        assert np.all(kept <= s[:chi] * (1 + 1e-12)) and np.abs(kept / s[:chi] - 1).max() < 2e-2
 
 
 def test_rsvd_split_graded_blocks_and_small_blocks():
