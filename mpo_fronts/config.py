@@ -301,7 +301,8 @@ def _parse_engine(e: dict) -> dict:
     chunk = _int("engine.chunk", e.get("chunk", 20), 1, "a positive integer (Trotter steps per block)")
     truncation = e.get("truncation", "svd")
     if truncation not in TRUNCATIONS:
-        raise ConfigError("engine.truncation", f"expected one of {', '.join(map(repr, TRUNCATIONS))} (how gates are truncated), got {truncation!r}")
+        routes = ", ".join(f'"{t}"' for t in TRUNCATIONS)
+        raise ConfigError("engine.truncation", f"expected one of {routes} (how gates are truncated), got {truncation!r}")
     return {"chi": chi, "dt": dt, "order": order, "cutoff": cutoff, "chunk": chunk, "truncation": truncation}
 
 

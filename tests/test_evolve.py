@@ -161,7 +161,12 @@ def test_checkpoint_restore_reproduces_uninterrupted_run(graded, truncation):
     saved = {}
     part = OperatorTEBD(chain, **kw)
     at = 3 if truncation == "svd" else 6  # mid-way between outputs 0 and 1
-    for k, e in part.run(ts, hook=lambda e: saved.setdefault(e.blocks_done, e.state_dict()) if e.blocks_done == at else None):
+
+    def hook(e):
+        if e.blocks_done == at:
+            saved.setdefault(at, e.state_dict())
+
+    for k, e in part.run(ts, hook=hook):
         if k == 1:
             break
     again = OperatorTEBD(chain, **kw)
@@ -413,7 +418,8 @@ def test_rsvd_split_graded_blocks_and_small_blocks():
     assert abs(out["rsvd"][3] - out["svd"][3]) <= 1e-8 * out["svd"][3]
     sv = {tr: np.sort(np.linalg.svd(o[0] @ o[1], compute_uv=False)[: o[0].shape[1]]) for tr, o in out.items()}
     assert np.abs(sv["rsvd"] / sv["svd"] - 1).max() < 1e-6
-    assert mf.evolve.split(np.random.default_rng(0).normal(size=(100, 200)), 40, 0.0, True, truncation="rsvd")[4] == "svd"
+    small = np.random.default_rng(0).normal(size=(100, 200))  # 100 < 2 (40 + 16)
+    assert mf.evolve.split(small, 40, 0.0, True, truncation="rsvd")[4] == "svd"
 
 
 @pytest.mark.parametrize("kind", ["mfi", "xxz"])
