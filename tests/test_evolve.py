@@ -349,17 +349,22 @@ def test_small_matrices_always_take_the_svd():
     assert mf.evolve.split(theta, 8, 0.0, True, truncation="eigh")[4] == "svd"
 
 
+def _svd_and(kind, L, chi, route, graded):
+    """Weights at t = 1.5, 3, ledger, route counts and ledger-minus-norm-loss of the SVD engine and of ``route``."""
+    chain = mf.mixed_field_ising_chain(L) if kind == "mfi" else mf.xxz_chain(L, delta=1.0, W=1.0, seed=3)
+    out = {}
+    for tr in ("svd", route):
+        eng = OperatorTEBD(chain, w="Z", site=L // 2, chi=chi, dt=0.05, truncation=tr, graded=graded)
+        w = np.array([mf.readout.pauli_weights(e.arrays).copy() for _, e in eng.run([1.5, 3.0])])
+        out[tr] = (w, eng.discarded_weight, dict(eng.splits), eng.discarded_weight - (1.0 - eng.norm2()))
+    return out
+
+
 @pytest.mark.parametrize("kind, graded", [("mfi", False), ("xxz", False), ("xxz", True)])
 def test_eigh_engine_equals_svd_engine(kind, graded):
     # the Gram route gives the SVD engine's C and ledger: measured differences at these sizes are about 1e-11
     # (|dw|, relative ahead of the front, ledger relative); tolerances 1e-8 leave a 100x+ margin
-    L, chi = 12, 16
-    chain = mf.mixed_field_ising_chain(L) if kind == "mfi" else mf.xxz_chain(L, delta=1.0, W=1.0, seed=3)
-    out = {}
-    for tr in ("svd", "eigh"):
-        eng = OperatorTEBD(chain, w="Z", site=L // 2, chi=chi, dt=0.05, truncation=tr, graded=graded)
-        w = np.array([mf.readout.pauli_weights(e.arrays).copy() for _, e in eng.run([1.5, 3.0])])
-        out[tr] = (w, eng.discarded_weight, dict(eng.splits))
+    out = _svd_and(kind, 12, 16, "eigh", graded)
     assert out["eigh"][2]["eigh"] > 100 and out["svd"][2]["eigh"] == 0
     a, b = out["svd"][0], out["eigh"][0]
     assert np.abs(a - b).max() < 1e-8
@@ -427,14 +432,8 @@ def test_rsvd_engine_equals_svd_engine(kind):
     # the randomized route gives the SVD engine's C and ledger: measured at these sizes |dw| 1e-10 (mixed-field
     # Ising) and 5e-13 (Heisenberg), relative ahead of the front 2e-12, ledger relative 2e-10; tolerances leave
     # 40x+ margin. At L = 32, chi = 64, 128 the changes are larger (README, Performance)
-    L, chi = 14, 16
-    chain = mf.mixed_field_ising_chain(L) if kind == "mfi" else mf.xxz_chain(L, delta=1.0, W=1.0, seed=3)
-    out = {}
-    for tr in ("svd", "rsvd"):
-        eng = OperatorTEBD(chain, w="Z", site=L // 2, chi=chi, dt=0.05, truncation=tr, graded=False)
-        w = np.array([mf.readout.pauli_weights(e.arrays).copy() for _, e in eng.run([1.5, 3.0])])
-        out[tr] = (w, eng.discarded_weight, dict(eng.splits))
-        assert abs(eng.discarded_weight - (1.0 - eng.norm2())) < 1e-12  # the ledger is the norm loss
+    out = _svd_and(kind, 14, 16, "rsvd", False)
+    assert all(abs(o[3]) < 1e-12 for o in out.values())  # the ledger is the norm loss
     assert out["rsvd"][2]["rsvd"] > 100 and out["svd"][2]["rsvd"] == 0
     a, b = out["svd"][0], out["rsvd"][0]
     assert np.abs(a - b).max() < 1e-8

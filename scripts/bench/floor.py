@@ -66,10 +66,9 @@ def _rand(m, chi):
 
 def _engine_rsvd(m, chi):
     """The engine's randomized route (evolve._rsvd) where it applies, gesdd elsewhere (as the engine does)."""
-    l = chi + ev.RSVD_OVERSAMPLE
-    if min(m.shape) < 2 * l:
+    if not ev.rsvd_samples(m.shape, chi):
         return np.linalg.svd(m, full_matrices=False)
-    return ev._rsvd(m, l)[:3]
+    return ev._rsvd(m, chi + ev.RSVD_OVERSAMPLE)[:3]
 
 
 METHODS = {"gesdd": _gesdd, "gesvd": _gesvd, "eig (quimb svd_via_eig)": _eig, "randomized (quimb rsvd)": _rand,
