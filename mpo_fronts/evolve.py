@@ -40,11 +40,12 @@ import numpy as np
 from .errors import InputError
 from .models import Chain
 from .pauli import LETTERS, bond_propagators, transfer_matrices
+from .schedules import (DEFAULT_CHUNK, ORDERS, block_layers, check_positive, check_times, step_layers,  # noqa: F401
+                        step_plan, time_grid)
 
 __all__ = ["OperatorTEBD", "step_plan", "step_layers", "block_layers", "time_grid", "split", "keep_count",
            "SVD_FLOOR", "EIGH_TRUST", "RSVD_OVERSAMPLE", "RSVD_POWER", "ORDERS", "TRUNCATIONS"]
 
-ORDERS = (2, 4)
 _LETTER_PARITY = np.array([0, 1, 1, 0], dtype=np.int8)  # I, X, Y, Z: number of X/Y letters mod 2
 SVD_FLOOR = 1e-13
 EIGH_TRUST = 1e-10  # one Gram eigendecomposition pass resolves eigenvalues down to this fraction of its largest
@@ -53,9 +54,7 @@ RSVD_OVERSAMPLE = 16  # columns of the randomized range finder beyond the chi it
 RSVD_POWER = 2  # subspace iterations of the randomized route
 RSVD_SEED = 20261202  # its test matrices are fixed: runs, resumed runs and workers repeat each other exactly
 TRUNCATIONS = ("eigh", "rsvd", "svd")
-DEFAULT_CHUNK = 20
 GRADED_MIN_CHI = 32
-_P4 = 1.0 / (4.0 - 4.0 ** (1.0 / 3.0))
 
 
 # -------------------------------------------------------------------------------------------- memory
@@ -92,102 +91,6 @@ def keep_freed_memory() -> bool:
                 _kept_memory = False
     return _kept_memory
 
-
-# -------------------------------------------------------------------------------------------- schedules
-def step_layers(order: int) -> list[tuple[int, float]]:
-    """Layers of one Trotter step as (parity, fraction of tau); parity 0 = even bonds (0,1), (2,3), ..."""
-    if order == 2:
-        return [(0, 0.5), (1, 1.0), (0, 0.5)]
-    if order == 4:
-        out: list[tuple[int, float]] = []
-        for c in (_P4, _P4, 1.0 - 4.0 * _P4, _P4, _P4):
-            out += [(0, 0.5 * c), (1, c), (0, 0.5 * c)]
-        return _merge(out)
-    raise InputError(f"order must be 2 or 4 (Trotter order), got {order!r}")
-
-
-def _merge(layers: list[tuple[int, float]]) -> list[tuple[int, float]]:
-    out: list[tuple[int, float]] = []
-    for parity, c in layers:
-        if out and out[-1][0] == parity:
-            out[-1] = (parity, out[-1][1] + c)
-        else:
-            out.append((parity, c))
-    return out
-
-
-def block_layers(order: int, n_steps: int, tau: float) -> list[tuple[int, float]]:
-    """The merged layer sequence (parity, duration) of ``n_steps`` Trotter steps of length tau."""
-    one = step_layers(order)
-    return [(p, c * tau) for p, c in _merge(one * n_steps)]
-
-
-def _check_times(times, t0: float = 0.0) -> np.ndarray:
-    try:
-        ts = np.asarray(times, dtype=float).reshape(-1)
-    except (TypeError, ValueError):
-        raise InputError(f"times must be a sequence of real numbers, got {times!r}") from None
-    if ts.size == 0:
-        raise InputError("times must contain at least one time")
-    if not np.all(np.isfinite(ts)):
-        raise InputError("times must be finite (no nan or inf)")
-    if ts[0] < t0 - 1e-12:
-        raise InputError(f"times must be >= {t0} (the start time), got {ts[0]}")
-    if np.any(np.diff(ts) <= 0):
-        k = int(np.flatnonzero(np.diff(ts) <= 0)[0])
-        raise InputError(f"times must be strictly increasing; times[{k}] = {ts[k]} >= times[{k + 1}] = {ts[k + 1]}")
-    return ts
-
-
-def step_plan(times, dt: float, chunk: int = DEFAULT_CHUNK, t0: float = 0.0) -> list[tuple[int, int, float]]:
-    """Blocks of equal Trotter steps that land exactly on every requested time.
-
-    The interval between consecutive output times (starting from t0) is cut into n = ceil(length / dt) equal
-    steps of tau = length / n <= dt, grouped into blocks of at most ``chunk`` steps.
-
-    Returns
-    -------
-    list of (k, n_steps, tau)
-        ``k`` is the index of the output time that the block leads to; output k is due after its last block.
-        An output at t0 has a block with n_steps = 0.
-    """
-    ts = _check_times(times, t0)
-    dt = _check_positive("dt", dt)
-    plan: list[tuple[int, int, float]] = []
-    prev = t0
-    for k, t in enumerate(ts):
-        length = t - prev
-        n = int(np.ceil(length / dt - 1e-9)) if length > 0 else 0
-        if n == 0:
-            plan.append((k, 0, 0.0))
-        else:
-            tau = length / n
-            left = n
-            while left > 0:
-                m = min(chunk, left)
-                plan.append((k, m, tau))
-                left -= m
-        prev = t
-    return plan
-
-
-def time_grid(start: float, stop: float, num: int, spacing: str = "log") -> np.ndarray:
-    """An output time grid: ``num`` times from start to stop, log- or linearly spaced (start > 0 for log)."""
-    if spacing not in ("log", "linear"):
-        raise InputError(f"spacing must be 'log' or 'linear', got {spacing!r}")
-    if not (isinstance(num, Integral) and num >= 1):
-        raise InputError(f"num must be a positive integer, got {num!r}")
-    if spacing == "log":
-        if not start > 0:
-            raise InputError(f"a log-spaced time grid needs start > 0, got start = {start}")
-        return np.geomspace(start, stop, num)
-    return np.linspace(start, stop, num)
-
-
-def _check_positive(name: str, value) -> float:
-    if isinstance(value, bool) or not isinstance(value, Real) or not np.isfinite(value) or value <= 0:
-        raise InputError(f"{name} must be a positive finite number, got {value!r}")
-    return float(value)
 
 
 def _check_w(w) -> str:
@@ -261,7 +164,7 @@ class OperatorTEBD:
         if isinstance(chi, bool) or not isinstance(chi, Integral) or chi < 1:
             raise InputError(f"chi (maximum bond dimension) must be a positive integer, got {chi!r}")
         self.chi = int(chi)
-        self.dt = _check_positive("dt", dt)
+        self.dt = check_positive("dt", dt)
         if order not in ORDERS:
             raise InputError(f"order must be 2 or 4 (Trotter order), got {order!r}")
         self.order = int(order)

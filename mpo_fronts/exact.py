@@ -28,7 +28,9 @@ from typing import Sequence
 import numpy as np
 
 from .errors import InputError
-from .evolve import DEFAULT_CHUNK, ORDERS, _check_times, _check_w, block_layers, check_site, step_plan
+from .evolve import _check_w, check_site
+from .schedules import DEFAULT_CHUNK, ORDERS, block_layers, step_plan
+from .schedules import check_times as _check_times
 from .models import Chain
 from .readout import PROBES, OtocResult, _check_probe, check_bits, otoc_from_weights
 
