@@ -4,26 +4,11 @@ Conventions: spin-1/2 operators S = sigma/2, hbar = 1, open chain, sites 0..L-1,
 C(r, t) = 1 - Re Tr[W(t) V_r W(t) V_r] / 2^L (infinite temperature) in [0, 2].
 """
 
-from importlib.metadata import PackageNotFoundError, version as _version
-
-try:
-    __version__ = _version("mpo-fronts")
-except PackageNotFoundError:  # pragma: no cover - running from a source tree without installation
-    __version__ = "0.1.0+unknown"
-
-from .errors import ConfigError, FrontsError, InputError, RunDirectoryError, UserError  # noqa: E402
-from .models import Chain, mixed_field_ising_chain, nn_chain, xxz_chain  # noqa: E402
-from .evolve import OperatorTEBD, step_plan, time_grid  # noqa: E402
-from .readout import OtocResult, evolve_otoc  # noqa: E402
-
-CONVENTIONS = (
-    "spin-1/2 operators S = sigma/2, hbar = 1, open chain, sites 0..L-1, time in units of 1/J; "
-    "XXZ: H = sum J (SxSx + SySy + delta SzSz) + sum h_i Sz_i, h_i uniform in [-W, W]; "
-    "mixed-field Ising (Pauli units): H = sum J ZZ + g X + h Z; "
-    "C(r,t) = 1 - Re Tr[W(t) V_r W(t) V_r]/2^L in [0, 2]; product state: 1 - Re <s|W(t) V_r W(t) V_r|s>, "
-    "'0' = spin up (Z = +1); MPO over Pauli letters I, X, Y, Z with unit Frobenius weight"
-)
-
+from .conventions import CONVENTIONS, __version__
+from .errors import ConfigError, FrontsError, InputError, RunDirectoryError, UserError
+from .models import Chain, mixed_field_ising_chain, nn_chain, xxz_chain
+from .evolve import OperatorTEBD, step_plan, time_grid
+from .readout import OtocResult, evolve_otoc
 
 def exact_otoc(*args, **kwargs):
     """Dense exact OTOCs (L <= 12); see :func:`mpo_fronts.exact.exact_otoc`."""

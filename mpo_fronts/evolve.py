@@ -39,14 +39,14 @@ import numpy as np
 
 from .errors import InputError
 from .models import Chain
-from .pauli import LETTERS, bond_propagators, transfer_matrices
+from .conventions import LETTER_PARITY as _LETTER_PARITY, LETTERS
+from .pauli import bond_propagators, transfer_matrices
 from .schedules import (DEFAULT_CHUNK, ORDERS, block_layers, check_positive, check_times, step_layers,  # noqa: F401
                         step_plan, time_grid)
 
 __all__ = ["OperatorTEBD", "step_plan", "step_layers", "block_layers", "time_grid", "split", "keep_count",
            "SVD_FLOOR", "EIGH_TRUST", "RSVD_OVERSAMPLE", "RSVD_POWER", "ORDERS", "TRUNCATIONS"]
 
-_LETTER_PARITY = np.array([0, 1, 1, 0], dtype=np.int8)  # I, X, Y, Z: number of X/Y letters mod 2
 SVD_FLOOR = 1e-13
 EIGH_TRUST = 1e-10  # one Gram eigendecomposition pass resolves eigenvalues down to this fraction of its largest
 EIGH_MIN_DIM = 48  # below this matrix size the SVD is cheap and the Gram route gains nothing

@@ -25,18 +25,12 @@ from typing import Any
 
 import numpy as np
 
+from .conventions import PAULI, SPIN
+
+_I2, _X, _Y, _Z = PAULI
 from .errors import InputError
 
 __all__ = ["Chain", "xxz_chain", "mixed_field_ising_chain", "nn_chain", "draw_fields", "PAULI", "SPIN"]
-
-_I2 = np.eye(2, dtype=complex)
-_X = np.array([[0, 1], [1, 0]], dtype=complex)
-_Y = np.array([[0, -1j], [1j, 0]], dtype=complex)
-_Z = np.array([[1, 0], [0, -1]], dtype=complex)
-#: The single-site Pauli matrices in the order I, X, Y, Z used everywhere in the package.
-PAULI = np.stack([_I2, _X, _Y, _Z])
-#: Spin-1/2 operators S^x, S^y, S^z = sigma / 2.
-SPIN = PAULI[1:] / 2
 
 
 @dataclass(frozen=True, eq=False)

@@ -11,12 +11,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from .models import PAULI
+from .conventions import LETTERS, PAULI
 
 __all__ = ["PAULI", "PAULI2", "transfer_matrix", "transfer_matrices", "bond_propagators", "pauli_vector",
            "LETTERS"]
 
-LETTERS = "IXYZ"
 #: Two-site Pauli strings P_a (x) P_b, shape (16, 4, 4), index a*4 + b.
 PAULI2 = np.einsum("aij,bkl->abikjl", PAULI, PAULI).reshape(16, 4, 4)
 

@@ -18,18 +18,11 @@ from typing import Any, Sequence
 
 import numpy as np
 
+from .conventions import ANTICOMMUTES, PAULI, PROBES
 from .errors import InputError
 
 __all__ = ["OtocResult", "pauli_weights", "otoc_from_weights", "right_weights", "product_state_otoc",
            "ANTICOMMUTES", "PROBES", "check_bits"]
-
-PROBES = ("X", "Y", "Z")
-#: ANTICOMMUTES[v][a] is True when the Pauli letter a (I, X, Y, Z) anticommutes with probe v.
-ANTICOMMUTES = {
-    "X": np.array([False, False, True, True]),
-    "Y": np.array([False, True, False, True]),
-    "Z": np.array([False, True, True, False]),
-}
 
 
 def _check_probe(v: str) -> str:
@@ -147,8 +140,6 @@ def right_weights(arrays: Sequence[np.ndarray], center: int | None = None,
 
 def _basis_products(bit: str) -> np.ndarray:
     """M[a, b] = <s| P_a P_b |s> for one site in basis state s ('0' up, '1' down)."""
-    from .models import PAULI
-
     idx = int(bit)
     return np.einsum("aij,bjk->abik", PAULI, PAULI)[:, :, idx, idx]
 

@@ -60,7 +60,7 @@ LETTER_AXIS = ("I", "X", "Y", "Z")
 
 
 def _package_info() -> tuple[str, str]:
-    from . import CONVENTIONS, __version__
+    from .conventions import CONVENTIONS, __version__
 
     return __version__, CONVENTIONS
 
