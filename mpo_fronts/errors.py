@@ -18,7 +18,19 @@ class UserError(FrontsError):
 
 
 class InputError(UserError, ValueError):
-    """An invalid argument to a library function (names the argument)."""
+    """An invalid argument to a library function (names the argument).
+
+    ``arg`` is the name of the offending argument when there is one (for example ``"overwrite"``); the message
+    speaks of the argument, and a front end such as the command line may add its own spelling of it (the CLI
+    maps ``arg`` to its flag). Pickles with ``arg``.
+    """
+
+    def __init__(self, message: str, arg: str | None = None):
+        super().__init__(message)
+        self.arg = arg
+
+    def __reduce__(self):
+        return (type(self), (str(self), self.arg))
 
 
 class ConfigError(UserError, ValueError):
