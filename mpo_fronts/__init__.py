@@ -7,8 +7,11 @@ C(r, t) = 1 - Re Tr[W(t) V_r W(t) V_r] / 2^L (infinite temperature) in [0, 2].
 from .conventions import CONVENTIONS, __version__
 from .errors import ConfigError, FrontsError, InputError, RunDirectoryError, UserError
 from .models import Chain, mixed_field_ising_chain, nn_chain, xxz_chain
-from .evolve import OperatorTEBD, step_plan, time_grid
-from .readout import OtocResult, evolve_otoc
+from .evolve import OperatorTEBD
+from .schedules import step_plan, time_grid
+from .readout import OtocResult
+from .driver import evolve_otoc
+from .settings import EvolutionSettings
 
 def exact_otoc(*args, **kwargs):
     """Dense exact OTOCs (L <= 12); see :func:`mpo_fronts.exact.exact_otoc`."""
@@ -25,5 +28,5 @@ def load(path):
 
 
 __all__ = ["xxz_chain", "mixed_field_ising_chain", "nn_chain", "Chain", "evolve_otoc", "exact_otoc", "load",
-           "OtocResult", "OperatorTEBD", "step_plan", "time_grid", "FrontsError", "UserError", "InputError",
+           "OtocResult", "EvolutionSettings", "OperatorTEBD", "step_plan", "time_grid", "FrontsError", "UserError", "InputError",
            "ConfigError", "RunDirectoryError", "CONVENTIONS", "__version__"]

@@ -318,6 +318,7 @@ def _status_one(directory, as_json: bool) -> int:
         print(json.dumps(st, indent=1))
         return 0
     d = st["description"]
+    ev = d.get("evolution", d.get("engine"))  # [engine] before 0.2
     n_done = len(st["done"])
 
     def ks(items, limit=12):
@@ -326,7 +327,7 @@ def _status_one(directory, as_json: bool) -> int:
 
     _say(f"run directory: {st['path']}",
          f"  {d['model']['kind']} L={d['model']['L']}, W at site {d['operators']['site']}, "
-         f"chi={d['engine']['chi']}, dt={d['engine']['dt']}, order {d['engine']['order']}, "
+         f"chi={ev['chi']}, dt={ev['dt']}, order {ev['order']}, "
          f"{len(d['times']['values'])} times up to t={d['times']['values'][-1]:g}",
          f"  done:         {n_done} of {st['realizations']}"
          + (f" (wall time {_fmt_s(st['wall_time'])} total, {_fmt_s(st['wall_time'] / n_done)} per realization)"

@@ -17,8 +17,8 @@ Tables and keys (defaults in brackets)::
     [state]       kind ["infinite_temperature"] | "product" (needs bits = "0101...", '0' = spin up)
                   | "random_product" (samples [1] random basis states per realization)
     [times]       values = [...] (strictly increasing, >= 0), or start, stop, num, spacing ["log"] | "linear"
-    [engine]      chi [64], dt [0.05], order [2], cutoff [0.0], chunk [20], truncation ["svd"] (or "rsvd", "eigh")
-                  (see mpo_fronts.evolve.OperatorTEBD)
+    [evolution]   chi [64], dt [0.05], order [2], cutoff [0.0], chunk [20], truncation ["svd"] (or "rsvd", "eigh")
+                  (see mpo_fronts.settings.EvolutionSettings; the table's old name [engine] is still read)
     [ensemble]    realizations [1 without randomness, else required], seed [0]
     [run]         label [""], checkpoints [true], checkpoint_interval [300.0 s], claim_timeout [600.0 s]
 
@@ -56,8 +56,8 @@ from typing import Any, Mapping
 import numpy as np
 
 from .errors import ConfigError
-from .evolve import TRUNCATIONS
 from .models import Chain, mixed_field_ising_chain, xxz_chain
+from .settings import SETTINGS_KEYS, EvolutionSettings
 
 __all__ = ["RunDescription", "Realization", "read_description", "parse_description", "realization_rng",
            "SCHEMA", "MODEL_KINDS", "STATE_KINDS"]
@@ -72,11 +72,13 @@ SCHEMA: dict[str, tuple[str, ...]] = {
     "operators": ("w", "site", "v"),
     "state": ("kind", "bits", "samples"),
     "times": ("values", "start", "stop", "num", "spacing"),
-    "engine": ("chi", "dt", "order", "cutoff", "chunk", "truncation"),
+    "evolution": SETTINGS_KEYS,
     "ensemble": ("realizations", "seed"),
     "run": ("label", "checkpoints", "checkpoint_interval", "claim_timeout"),
 }
 _REQUIRED_TABLES = ("model", "times")
+#: Old table names still read: [engine] was renamed [evolution] (it holds evolution settings, not an engine).
+TABLE_ALIASES = {"engine": "evolution"}
 
 
 # ------------------------------------------------------------------------------------------------ helpers
@@ -286,26 +288,6 @@ def _parse_times(t: dict) -> list[float]:
     return [float(x) for x in ts]
 
 
-def _parse_engine(e: dict) -> dict:
-    _check_keys("engine", e, SCHEMA["engine"])
-    chi = _int("engine.chi", e.get("chi", 64), 1, "a positive integer (maximum bond dimension)")
-    dt = _real("engine.dt", e.get("dt", 0.05), "a positive number (largest Trotter step, units of 1/J)")
-    if dt <= 0:
-        raise ConfigError("engine.dt", f"expected a positive number (largest Trotter step, units of 1/J), got {dt}")
-    order = _int("engine.order", e.get("order", 2), None, "2 or 4 (Trotter order)")
-    if order not in (2, 4):
-        raise ConfigError("engine.order", f"expected 2 or 4 (Trotter order), got {order}")
-    cutoff = _real("engine.cutoff", e.get("cutoff", 0.0), "a number in [0, 1) (discarded weight per truncation)")
-    if not 0 <= cutoff < 1:
-        raise ConfigError("engine.cutoff", f"expected a number in [0, 1) (discarded weight per truncation), got {cutoff}")
-    chunk = _int("engine.chunk", e.get("chunk", 20), 1, "a positive integer (Trotter steps per block)")
-    truncation = e.get("truncation", "svd")
-    if truncation not in TRUNCATIONS:
-        routes = ", ".join(f'"{t}"' for t in TRUNCATIONS)
-        raise ConfigError("engine.truncation", f"expected one of {routes} (how gates are truncated), got {truncation!r}")
-    return {"chi": chi, "dt": dt, "order": order, "cutoff": cutoff, "chunk": chunk, "truncation": truncation}
-
-
 def _parse_run(r: dict) -> dict:
     _check_keys("run", r, SCHEMA["run"])
     label = _str("run.label", r.get("label", ""))
@@ -325,7 +307,8 @@ def parse_description(raw: Mapping, source: str | None = None) -> "RunDescriptio
     Parameters
     ----------
     raw : mapping
-        Tables ``model``, ``operators``, ``state``, ``times``, ``engine``, ``ensemble``, ``run`` (see module doc).
+        Tables ``model``, ``operators``, ``state``, ``times``, ``evolution`` (or its old name ``engine``),
+        ``ensemble``, ``run`` (see module doc).
     source : str, optional
         Where the description came from (file name), for messages.
 
@@ -336,9 +319,12 @@ def parse_description(raw: Mapping, source: str | None = None) -> "RunDescriptio
     """
     if not isinstance(raw, Mapping):
         raise ConfigError("", f"a run description must be a table of tables, got {_typename(raw)}")
+    for old, new in TABLE_ALIASES.items():
+        if old in raw and new in raw:
+            raise ConfigError(old, f"give either [{new}] or its old name [{old}], not both")
     for name in raw:
-        if name not in SCHEMA:
-            hint = _suggest(name, SCHEMA) or _key_hint(None, name, ())
+        if name not in SCHEMA and name not in TABLE_ALIASES:
+            hint = _suggest(name, [*SCHEMA, *TABLE_ALIASES]) or _key_hint(None, name, ())
             raise ConfigError(name, f"unknown table{hint} (valid tables: {', '.join(SCHEMA)})")
     for name in _REQUIRED_TABLES:
         if name not in raw:
@@ -348,7 +334,8 @@ def parse_description(raw: Mapping, source: str | None = None) -> "RunDescriptio
     operators = _parse_operators(_table(raw, "operators"), L)
     state = _parse_state(_table(raw, "state"), L)
     times = _parse_times(_table(raw, "times"))
-    engine = _parse_engine(_table(raw, "engine"))
+    evo_name = "engine" if "engine" in raw else "evolution"
+    evolution = EvolutionSettings.from_table(_table(raw, evo_name), evo_name).to_dict()
     run = _parse_run(_table(raw, "run"))
     ens_raw = _table(raw, "ensemble")
     _check_keys("ensemble", ens_raw, SCHEMA["ensemble"])
@@ -374,7 +361,7 @@ def parse_description(raw: Mapping, source: str | None = None) -> "RunDescriptio
                                                    "identical; set realizations = 1 or add disorder (model.W)")
     ensemble = {"realizations": R, "seed": seed}
     data = {"model": model, "operators": operators, "state": state, "times": {"values": times},
-            "engine": engine, "ensemble": ensemble, "run": run}
+            "evolution": evolution, "ensemble": ensemble, "run": run}
     return RunDescription(data, source)
 
 
@@ -472,13 +459,14 @@ class RunDescription:
     def __repr__(self) -> str:
         m = self._data["model"]
         return (f"RunDescription({m['kind']}, L={m['L']}, realizations={self.realizations}, "
-                f"chi={self._data['engine']['chi']}, times={len(self._data['times']['values'])})")
+                f"chi={self._data['evolution']['chi']}, times={len(self._data['times']['values'])})")
 
     def fingerprint(self) -> str:
         """SHA-256 of what is computed: everything except the [run] table and ensemble.realizations."""
         d = self.to_dict()
         d.pop("run")
         d["ensemble"].pop("realizations")
+        d["engine"] = d.pop("evolution")  # the table's name in 0.1.0: run directories written then still match
         return hashlib.sha256(_canonical(d).encode()).hexdigest()
 
     # ---------------------------------------------------------------- convenience
@@ -513,8 +501,14 @@ class RunDescription:
         return self._data["state"]["kind"]
 
     @property
+    def settings(self) -> EvolutionSettings:
+        """The evolution settings (the ``[evolution]`` table) as the frozen object the engine takes."""
+        return EvolutionSettings(**self._data["evolution"])
+
+    @property
     def engine(self) -> dict:
-        return dict(self._data["engine"])
+        """The evolution settings as a plain dict (``settings.to_dict()``)."""
+        return dict(self._data["evolution"])
 
     @property
     def realizations(self) -> int:
@@ -536,6 +530,7 @@ class RunDescription:
         d = self.to_dict()
         for name, value in changes.items():
             table, _, key = name.partition("__")
+            table = TABLE_ALIASES.get(table, table)
             if table not in SCHEMA or key not in SCHEMA[table]:
                 raise ConfigError(f"{table}.{key}", "not a key of the run description")
             if value is None:

@@ -35,7 +35,9 @@ from typing import Any, Callable, Sequence
 import numpy as np
 
 from .config import Realization, RunDescription, parse_description
+from .driver import Observer
 from .errors import FrontsError, InputError, UserError, require
+from .settings import EvolutionSettings
 from .store import ClaimInfo, RunDirectory
 
 __all__ = ["run_ensemble", "compute_realization", "evolve_realization", "shard_indices", "parse_shard",
@@ -118,11 +120,11 @@ def _init_worker() -> None:
 
 
 # ------------------------------------------------------------------------------------------- one realization
-def evolve_realization(chain, *, w: str, site: int, times: Sequence[float], engine: dict,
+def evolve_realization(chain, *, w: str, site: int, times: Sequence[float], settings: EvolutionSettings,
                        probes: Sequence[str] = ("X", "Y", "Z"), bits: Sequence[str] | None = None,
-                       resume: dict | None = None,
-                       on_block: Callable[[Any, dict, int], None] | None = None) -> dict:
-    """Evolve W at ``site`` on ``chain`` and read out every requested time.
+                       resume: dict | None = None, observers: Sequence[Observer] = ()) -> dict:
+    """One realization through the evolution driver (:func:`mpo_fronts.driver.evolve`), as the result dict
+    that the run directory stores.
 
     Parameters
     ----------
@@ -131,98 +133,71 @@ def evolve_realization(chain, *, w: str, site: int, times: Sequence[float], engi
         The evolved operator and its site.
     times : sequence of float
         Output times (units 1/J).
-    engine : dict
-        ``chi``, ``dt``, ``order``, ``cutoff``, ``chunk``, ``truncation`` (optional, default 'svd') of
-        :class:`mpo_fronts.evolve.OperatorTEBD`.
+    settings : EvolutionSettings
+        Evolution settings (from the description's ``[evolution]`` table).
     probes : sequence of str
         Probes V whose OTOC is stored.
     bits : sequence of str, optional
         Basis states for product-state OTOCs ('0' = spin up); None for infinite temperature.
     resume : dict, optional
         A checkpoint (``state``, ``outputs``, ``n_done``, ``wall_time``, ``restarts``) to continue from.
-    on_block : callable, optional
-        ``on_block(engine, outputs, n_done)`` after every block of Trotter steps (checkpoints, progress).
+    observers : sequence of Observer
+        Called after every block (checkpoints, heartbeat, progress).
 
     Returns
     -------
     dict
         ``times``, ``otoc`` {v: (n_t, L)}, ``weights`` (n_t, L, 4), ``right_weight`` (n_t, L),
-        ``discarded_weight`` (n_t,), ``max_bond`` (n_t,), ``state_otoc`` {v: (S, n_t, L)} or None, ``bits``,
-        ``engine`` (settings incl. ``max_step``), ``wall_time`` (s, including resumed sessions), ``restarts``,
-        ``resumed_from`` (time of the checkpoint, or None).
+        ``discarded_weight`` (n_t,), ``bond_discarded`` (n_t, L-1), ``bond_entropy`` (n_t, L-1), ``max_bond``
+        (n_t,), ``state_otoc`` {v: (S, n_t, L)} or None, ``bits``, ``engine`` (settings, ``max_step``,
+        ``splits``, ...), ``wall_time`` (s, including resumed sessions), ``restarts``, ``resumed_from``
+        (time of the checkpoint, or None).
     """
-    from .evolve import SVD_FLOOR, OperatorTEBD, step_plan
-    from .readout import otoc_from_weights, product_state_otoc, read_operator
+    from .driver import DEFAULT_MEASUREMENTS, evolve, product_states
+    from .readout import otoc_from_weights
 
-    t_start = time.perf_counter()
-    ts = np.asarray(times, dtype=float)
-    n_t, L = ts.size, chain.L
-    eng = OperatorTEBD(chain, w=w, site=site, chi=engine["chi"], dt=engine["dt"], order=engine["order"],
-                       cutoff=engine["cutoff"], chunk=engine["chunk"], truncation=engine.get("truncation", "svd"))
-    S = len(bits) if bits is not None else 0
-    out: dict[str, Any] = {"weights": np.zeros((n_t, L, 4)), "right_weight": np.zeros((n_t, L)),
-                           "discarded_weight": np.zeros(n_t), "max_bond": np.zeros(n_t, dtype=np.int64)}
+    states = product_states(bits, chain.L, probes)
+    ms = list(DEFAULT_MEASUREMENTS) + ([states] if states is not None else [])
+    evo = evolve(chain, w, site, times, settings, measurements=ms, observers=observers, resume=resume, threads=1)
+    a = evo.arrays
+    result: dict[str, Any] = {name: a[name] for name in ("weights", "right_weight", "discarded_weight",
+                                                         "bond_discarded", "bond_entropy", "max_bond")}
+    result["times"] = evo.times
     if bits is not None:
-        out["state_otoc"] = {v: np.zeros((S, n_t, L)) for v in probes}
-    n_done = 0
-    wall_before, restarts, resumed_from = 0.0, 0, None
-
-    def measure(k: int, e) -> None:
-        m = read_operator(e.arrays, e.center)
-        out["weights"][k], out["right_weight"][k] = m["weights"], m["right_weight"]
-        out["discarded_weight"][k] = e.discarded_weight
-        out["max_bond"][k] = e.max_bond
-        if bits is not None:
-            for v in probes:
-                for s, b in enumerate(bits):
-                    out["state_otoc"][v][s, k] = product_state_otoc(e.arrays, b, v)
-
-    if resume is not None:
-        eng.load_state_dict(resume["state"])
-        n_done = int(resume["n_done"])
-        for name, arr in resume["outputs"].items():
-            if isinstance(arr, dict):
-                for v, a in arr.items():
-                    out[name][v][:, :n_done] = a
-            else:
-                out[name][:n_done] = arr
-        wall_before, restarts, resumed_from = float(resume["wall_time"]), int(resume["restarts"]) + 1, eng.t
-        # outputs whose blocks are all done; the checkpoint may predate the readout of the last one
-        last_block: dict[int, int] = {}
-        for i, (kk, _, _) in enumerate(step_plan(ts, eng.dt, eng.chunk)):
-            last_block[kk] = i
-        complete = sum(1 for i in last_block.values() if i < eng.blocks_done)
-        if complete - n_done > 1:
-            raise InputError(f"checkpoint is inconsistent: {n_done} outputs stored, {complete} due")
-        if complete == n_done + 1:
-            measure(n_done, eng)
-            n_done += 1
-
-    state = {"n_done": n_done}
-
-    def hook(e) -> None:
-        if on_block is not None:
-            on_block(e, out, state["n_done"])
-
-    for k, e in eng.run(ts, hook=hook):
-        measure(k, e)
-        state["n_done"] = k + 1
-    result = dict(out)
-    result["times"] = ts
-    if bits is not None:
-        result["otoc"] = {v: out["state_otoc"][v].mean(axis=0) for v in probes}
+        result["state_otoc"] = {v: np.ascontiguousarray(np.moveaxis(a[f"state_otoc_{v}"], 1, 0)) for v in probes}
+        result["otoc"] = {v: result["state_otoc"][v].mean(axis=0) for v in probes}
         result["bits"] = list(bits)
     else:
-        result["otoc"] = {v: otoc_from_weights(out["weights"], v) for v in probes}
+        result["otoc"] = {v: otoc_from_weights(a["weights"], v) for v in probes}
         result["state_otoc"] = None
         result["bits"] = None
-    result["engine"] = {"method": "mpo_tebd", "chi": eng.chi, "dt": eng.dt, "order": eng.order,
-                        "cutoff": eng.cutoff, "chunk": eng.chunk, "max_step": eng.max_step, "svd_floor": SVD_FLOOR,
-                        "truncation": eng.truncation, "graded": eng.graded}
-    result["wall_time"] = wall_before + time.perf_counter() - t_start
-    result["restarts"] = restarts
-    result["resumed_from"] = resumed_from
+    result["engine"] = evo.engine
+    result["wall_time"] = evo.wall_time
+    result["restarts"] = evo.restarts
+    result["resumed_from"] = evo.resumed_from
     return result
+
+
+class _Checkpoints(Observer):
+    """After every block: heartbeat of the claim, progress, and a checkpoint every ``interval`` seconds."""
+
+    def __init__(self, rd, k: int, claim, progress, interval: float | None):
+        self.rd, self.k, self.claim, self.progress, self.interval = rd, k, claim, progress, interval
+        self.last = time.monotonic()
+        self.t_session = time.perf_counter()
+
+    def after_block(self, engine, evolution) -> None:
+        self.claim.progress(engine.t)
+        if self.progress is not None:
+            self.progress(self.k, engine.t)
+        if self.interval is not None and time.monotonic() - self.last >= self.interval:
+            self.save(engine, evolution)
+
+    def save(self, engine, evolution) -> None:
+        """Write a checkpoint now (the engine state and the outputs measured so far)."""
+        self.rd.save_checkpoint(self.k, engine.state_dict(), evolution.outputs(), evolution.n_done,
+                                evolution.wall_time + time.perf_counter() - self.t_session, evolution.restarts)
+        self.last = time.monotonic()
 
 
 def _realization_payload(desc: RunDescription, real: Realization, result: dict) -> dict:
@@ -272,22 +247,9 @@ def _compute_realization(run_dir, description, k, run_id, progress) -> dict:
         opts = desc.run_options
         real = desc.realization(k)
         ckpt = rd.load_checkpoint(k) if opts["checkpoints"] else None
-        last = {"t": time.monotonic()}
-        wall0 = ckpt["wall_time"] if ckpt else 0.0
-        restarts = ckpt["restarts"] + 1 if ckpt else 0
-        t_session = time.perf_counter()
-
-        def on_block(e, outputs, n_done):
-            claim.progress(e.t)
-            if progress is not None:
-                progress(k, e.t)
-            if opts["checkpoints"] and time.monotonic() - last["t"] >= opts["checkpoint_interval"]:
-                rd.save_checkpoint(k, e.state_dict(), outputs, n_done,
-                                   wall0 + time.perf_counter() - t_session, restarts)
-                last["t"] = time.monotonic()
-
-        result = evolve_realization(real.chain, w=desc.w, site=desc.site, times=desc.times, engine=desc.engine,
-                                    probes=desc.probes, bits=real.bits, resume=ckpt, on_block=on_block)
+        saver = _Checkpoints(rd, k, claim, progress, opts["checkpoint_interval"] if opts["checkpoints"] else None)
+        result = evolve_realization(real.chain, w=desc.w, site=desc.site, times=desc.times, settings=desc.settings,
+                                    probes=desc.probes, bits=real.bits, resume=ckpt, observers=[saver])
         rd.write_result(k, dict(_realization_payload(desc, real, result), run_id=run_id))
         rd.remove_checkpoint(k)
     finally:
@@ -625,7 +587,7 @@ def check_against_exact(description: RunDescription, L: int = 10, realizations: 
         for k in range(min(realizations, description.realizations)):
             real = description.truncated_realization(k, L)
             res = evolve_realization(real.chain, w=description.w, site=site, times=times,
-                                     engine=description.engine, probes=description.probes, bits=real.bits)
+                                     settings=description.settings, probes=description.probes, bits=real.bits)
             dev_k = 0.0
             states = real.bits if real.bits is not None else [None]
             for s, bits in enumerate(states):

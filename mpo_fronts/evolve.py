@@ -1,29 +1,18 @@
-"""The TEBD engine: Trotter schedules, truncation, the discarded-weight ledger.
+"""The TEBD engine: the operator W(t) as an MPS over Pauli letters, gates, the orthogonality centre, checkpoints.
 
 The operator W(t) = e^{iHt} W e^{-iHt} is held as an MPS over Pauli letters (local dimension 4, float64, tensors
-of shape (D_left, 4, D_right)). One time step tau applies, bond by bond, the real orthogonal Pauli transfer
-matrices of exp(-i H_b tau') (see :mod:`mpo_fronts.pauli`) in a brickwork pattern: all even bonds (0,1), (2,3),
-... then all odd bonds, following the schedule of the chosen Trotter order:
-
-* order 2 (symmetric splitting): E(tau/2) O(tau) E(tau/2);
-* order 4: five second-order steps of lengths p, p, 1-4p, p, p (times tau) with p = 1/(4 - 4^(1/3))
-  (Suzuki's fractal composition), adjacent half layers merged.
-
-Consecutive layers of the same parity are merged, so a second-order step costs two layers. Merging stops at
-every requested output time and after every ``chunk`` steps ("blocks"); the state between blocks is a physical
-state at a definite time, where the caller may read out or checkpoint. The step plan depends only on the
-requested times, dt and chunk, so a run resumed from a checkpoint repeats the uninterrupted one exactly.
+of shape (D_left, 4, D_right)). One time step applies, bond by bond, the real orthogonal Pauli transfer
+matrices of exp(-i H_b tau') (see :mod:`mpo_fronts.pauli`) in the brickwork pattern of the chosen Trotter
+schedule (:mod:`mpo_fronts.schedules`). Merging of layers stops at every requested output time and after every
+``chunk`` steps ("blocks"); the state between blocks is a physical state at a definite time, where the caller
+may read out or checkpoint. The step plan depends only on the requested times, dt and chunk, so a run resumed
+from a checkpoint repeats the uninterrupted one exactly.
 
 Truncation happens in every gate, with the orthogonality centre inside the two-site block (it is tracked and
-moved by QR, never by a full re-canonicalization): keep at most ``chi`` singular values and drop the smallest
-ones while their summed square stays below ``cutoff``; values below ``1e-13`` of the largest are numerical
-zeros and are always dropped. The decomposition (:func:`split`) is LAPACK's SVD by default; the opt-in
-``truncation='rsvd'`` finds the kept subspace by randomized subspace iteration before an SVD of the projected
-block (about 2x faster where the bond is saturated, see :func:`_rsvd`); the opt-in ``truncation='eigh'`` uses
-eigendecompositions of the block's Gram matrix with refinement passes (faster only at chi >= 128). Because
-every gate is orthogonal, the Frobenius weight sum_S c_S^2 only changes by truncation: the ledger of dropped
-squared singular values (plus, for 'rsvd', the weight outside the sampled subspace) equals the norm loss
-1 - sum_S c_S^2 exactly.
+moved by QR, never by a full re-canonicalization), by the route the settings name
+(:mod:`mpo_fronts.truncation`). Because every gate is orthogonal, the Frobenius weight sum_S c_S^2 only changes
+by truncation: the ledger (:class:`~mpo_fronts.truncation.TruncationLedger`, total and per bond) equals the
+norm loss 1 - sum_S c_S^2 exactly.
 
 Gates are applied only on bonds that touch the support of W(t) (the sites that may carry non-identity
 letters): a gate on two identity letters is the identity, so skipping it is exact.
@@ -37,23 +26,16 @@ from typing import Callable, Iterator, Sequence
 
 import numpy as np
 
+from .conventions import LETTER_PARITY as _LETTER_PARITY, LETTERS, PROBES
 from .errors import InputError
 from .models import Chain
-from .conventions import LETTER_PARITY as _LETTER_PARITY, LETTERS
 from .pauli import bond_propagators, transfer_matrices
-from .schedules import (DEFAULT_CHUNK, ORDERS, block_layers, check_positive, check_times, step_layers,  # noqa: F401
-                        step_plan, time_grid)
+from .schedules import block_layers, step_plan
+from .settings import EvolutionSettings
+from .truncation import TruncationLedger, split
 
-__all__ = ["OperatorTEBD", "step_plan", "step_layers", "block_layers", "time_grid", "split", "keep_count",
-           "SVD_FLOOR", "EIGH_TRUST", "RSVD_OVERSAMPLE", "RSVD_POWER", "ORDERS", "TRUNCATIONS"]
+__all__ = ["OperatorTEBD", "check_w", "check_site", "keep_freed_memory", "bond_entropies", "GRADED_MIN_CHI"]
 
-SVD_FLOOR = 1e-13
-EIGH_TRUST = 1e-10  # one Gram eigendecomposition pass resolves eigenvalues down to this fraction of its largest
-EIGH_MIN_DIM = 48  # below this matrix size the SVD is cheap and the Gram route gains nothing
-RSVD_OVERSAMPLE = 16  # columns of the randomized range finder beyond the chi it must capture
-RSVD_POWER = 2  # subspace iterations of the randomized route
-RSVD_SEED = 20261202  # its test matrices are fixed: runs, resumed runs and workers repeat each other exactly
-TRUNCATIONS = ("eigh", "rsvd", "svd")
 GRADED_MIN_CHI = 32
 
 
@@ -93,9 +75,10 @@ def keep_freed_memory() -> bool:
 
 
 
-def _check_w(w) -> str:
-    if not isinstance(w, str) or w.upper() not in ("X", "Y", "Z"):
-        raise InputError(f"w (the evolved operator) must be one of 'X', 'Y', 'Z', got {w!r}")
+def check_w(w) -> str:
+    """Validate the evolved operator W: one of 'X', 'Y', 'Z' (case-insensitive)."""
+    if not isinstance(w, str) or w.upper() not in PROBES:
+        raise InputError(f"w (the evolved operator) must be one of 'X', 'Y', 'Z', got {w!r}", arg="w")
     return w.upper()
 
 
@@ -104,7 +87,7 @@ def check_site(site, L: int) -> int:
     if isinstance(site, str) and site == "center":
         return L // 2
     if isinstance(site, bool) or not isinstance(site, Integral) or not 0 <= site < L:
-        raise InputError(f"site must be an integer in 0..{L - 1} or 'center', got {site!r}")
+        raise InputError(f"site must be an integer in 0..{L - 1} or 'center', got {site!r}", arg="site")
     return int(site)
 
 
@@ -120,27 +103,20 @@ class OperatorTEBD:
         The evolved local operator.
     site : int or 'center'
         Where W sits at t = 0.
-    chi : int
-        Maximum bond dimension.
-    dt : float
-        Largest Trotter step (units of 1/J); the steps are shortened to land on every requested time.
-    order : {2, 4}
-        Trotter order.
-    cutoff : float
-        Largest summed squared singular value dropped per truncation (absolute weight; W has unit weight).
-    chunk : int
-        Steps per block (merging of half layers stops at block ends; checkpoints are taken there).
+    settings : EvolutionSettings, optional
+        Bond dimension, Trotter step and order, cutoff, steps per block, truncation route (see
+        :class:`mpo_fronts.settings.EvolutionSettings`); validated once there.
+    **options
+        Instead of ``settings``, the same fields as keywords (``chi=32, dt=0.1``), for interactive use; they
+        build the settings object.
     graded : bool, optional
         Use Z2-graded blocks (two half-size SVDs per gate instead of one); default: when the chain conserves
         total S^z and chi >= 32. Results equal the ungraded engine to rounding.
-    truncation : {'svd', 'rsvd', 'eigh'}
-        How each gate is split and truncated (see :func:`split`): 'svd' (default, LAPACK gesdd, the optimal
-        truncation); 'rsvd' (randomized subspace iteration on saturated bonds, then the SVD of the projected
-        block; about 2x faster at chi >= 64 in chains without a conservation law, measured changes of C
-        against 'svd' 1e-7 or less at L = 32; the sampled-out weight is in the ledger); or 'eigh' (Gram-matrix
-        eigendecompositions with refinement passes for the small singular values; slightly faster at large
-        chi; measured changes of C against 'svd' 1e-6 to 7e-5, see README, Performance). ``splits`` counts
-        the gates that went each way (small matrices always go to the SVD).
+
+    Attributes
+    ----------
+    ledger : TruncationLedger
+        What truncation removed: total (``discarded_weight``), per bond, and gates per route (``splits``).
 
     Examples
     --------
@@ -152,32 +128,26 @@ class OperatorTEBD:
     (1.0, True)
     """
 
-    def __init__(self, chain: Chain, w: str = "Z", site=0, chi: int = 64, dt: float = 0.05, order: int = 2,
-                 cutoff: float = 0.0, chunk: int = DEFAULT_CHUNK, graded: bool | None = None,
-                 truncation: str = "svd"):
+    def __init__(self, chain: Chain, w: str = "Z", site=0, settings: EvolutionSettings | None = None, *,
+                 graded: bool | None = None, **options):
         if not isinstance(chain, Chain):
-            raise InputError(f"chain must be a Chain (from xxz_chain, mixed_field_ising_chain, nn_chain), got {type(chain).__name__}")
+            raise InputError(f"chain must be a Chain (from xxz_chain, mixed_field_ising_chain, nn_chain), got "
+                             f"{type(chain).__name__}", arg="chain")
+        if settings is None:
+            settings = EvolutionSettings(**options)
+        elif options:
+            raise InputError(f"give either settings or keyword settings ({', '.join(sorted(options))}), not both",
+                             arg=sorted(options)[0])
+        elif not isinstance(settings, EvolutionSettings):
+            raise InputError(f"settings must be an EvolutionSettings, got {type(settings).__name__}", arg="settings")
+        self.settings = settings
         self.chain = chain
         self.L = chain.L
-        self.w = _check_w(w)
+        self.w = check_w(w)
         self.site = check_site(site, self.L)
-        if isinstance(chi, bool) or not isinstance(chi, Integral) or chi < 1:
-            raise InputError(f"chi (maximum bond dimension) must be a positive integer, got {chi!r}")
-        self.chi = int(chi)
-        self.dt = check_positive("dt", dt)
-        if order not in ORDERS:
-            raise InputError(f"order must be 2 or 4 (Trotter order), got {order!r}")
-        self.order = int(order)
-        if isinstance(cutoff, bool) or not isinstance(cutoff, Real) or not (0 <= cutoff < 1):
-            raise InputError(f"cutoff (discarded weight per truncation) must be in [0, 1), got {cutoff!r}")
-        self.cutoff = float(cutoff)
-        if isinstance(chunk, bool) or not isinstance(chunk, Integral) or chunk < 1:
-            raise InputError(f"chunk must be a positive integer, got {chunk!r}")
-        self.chunk = int(chunk)
-        if truncation not in TRUNCATIONS:
-            raise InputError(f"truncation must be one of {', '.join(map(repr, TRUNCATIONS))}, got {truncation!r}")
-        self.truncation = truncation
-        self.splits = {route: 0 for route in TRUNCATIONS}
+        self.chi, self.dt, self.order = settings.chi, settings.dt, settings.order
+        self.cutoff, self.chunk, self.truncation = settings.cutoff, settings.chunk, settings.truncation
+        self.ledger = TruncationLedger.empty(self.L - 1)
         keep_freed_memory()
         self._hb = chain.bond_hamiltonians()
         self._gates: dict[float, np.ndarray] = {}
@@ -200,7 +170,6 @@ class OperatorTEBD:
         self._edge = (np.zeros(1, dtype=np.int8), np.array([p_w], dtype=np.int8))
         self.lo = self.hi = self.site  # support: sites that may carry non-identity letters
         self.t = 0.0
-        self.discarded_weight = 0.0
         self.blocks_done = 0
         self.max_step = 0.0
 
@@ -210,8 +179,15 @@ class OperatorTEBD:
         """Largest bond dimension of the operator now."""
         return max(A.shape[2] for A in self.arrays)
 
-    def bond_dims(self) -> list[int]:
-        return [A.shape[2] for A in self.arrays[:-1]]
+    @property
+    def discarded_weight(self) -> float:
+        """Cumulative discarded weight: the norm loss 1 - sum_S c_S^2 (see :attr:`ledger`)."""
+        return self.ledger.total
+
+    @property
+    def splits(self) -> dict[str, int]:
+        """Gates per truncation route that actually ran."""
+        return self.ledger.splits
 
     def norm2(self) -> float:
         """Frobenius weight sum_S c_S^2 (from the orthogonality centre)."""
@@ -227,23 +203,22 @@ class OperatorTEBD:
 
     def state_dict(self) -> dict:
         """Everything needed to continue the evolution (numpy arrays and numbers only)."""
-        return {"arrays": [A.copy() for A in self.arrays], "t": self.t, "discarded_weight": self.discarded_weight,
+        return {"arrays": [A.copy() for A in self.arrays], "t": self.t, **self.ledger.state(),
                 "blocks_done": self.blocks_done, "center": self.center, "lo": self.lo, "hi": self.hi,
-                "max_step": self.max_step, "labels": [x.copy() for x in self.labels], "splits": dict(self.splits)}
+                "max_step": self.max_step, "labels": [x.copy() for x in self.labels]}
 
     def load_state_dict(self, state: dict) -> None:
         """Restore a state saved by :meth:`state_dict` (same chain, operator and engine settings)."""
         arrays = [np.asarray(A, dtype=float) for A in state["arrays"]]
         if len(arrays) != self.L:
-            raise InputError(f"checkpoint holds {len(arrays)} sites, the chain has L = {self.L}")
+            raise InputError(f"checkpoint holds {len(arrays)} sites, the chain has L = {self.L}", arg="state")
         self.arrays = arrays
         self.t = float(state["t"])
-        self.discarded_weight = float(state["discarded_weight"])
+        self.ledger = TruncationLedger.from_state(state, self.L - 1)
         self.blocks_done = int(state["blocks_done"])
         self.center = int(state["center"])
         self.lo, self.hi = int(state["lo"]), int(state["hi"])
         self.max_step = float(state.get("max_step", 0.0))
-        self.splits = {"eigh": 0, "svd": 0, **{k: int(v) for k, v in dict(state.get("splits", {})).items()}}
         if "labels" in state:
             self.labels = [np.asarray(x, dtype=np.int8) for x in state["labels"]]
 
@@ -350,243 +325,13 @@ class OperatorTEBD:
         theta = np.matmul(G, theta).reshape(Dl * 4, 4 * Dr)
         rp, cp = (self._row_parity(b), self._col_parity(b + 1)) if self.graded else (None, None)
         left, right, lab, disc, route = split(theta, self.chi, self.cutoff, to_right, rp, cp, self.truncation)
-        self.discarded_weight += disc
-        self.splits[route] += 1
+        self.ledger.add(b, disc, route)
         k = left.shape[1]
         if lab is not None:
             self.labels[b] = lab
         self.arrays[b] = left.reshape(Dl, 4, k)
         self.arrays[b + 1] = right.reshape(k, 4, Dr)
         self.center = b + 1 if to_right else b
-
-
-# -------------------------------------------------------------------------------------------- truncation
-def keep_count(s: np.ndarray, chi: int, cutoff: float = 0.0) -> int:
-    """How many of the descending singular values ``s`` a truncation keeps (at least one).
-
-    At most ``chi``; values at or below ``SVD_FLOOR * s[0]`` are numerical zeros; then the smallest kept values are
-    dropped while their summed square stays at or below ``cutoff``.
-    """
-    k = min(chi, int(np.count_nonzero(s > SVD_FLOOR * s[0]))) if s[0] > 0 else 1
-    if cutoff > 0 and k > 1:
-        tail = np.cumsum((s[k - 1::-1] ** 2))  # tail[j] = sum of the j+1 smallest kept values squared
-        extra = int(np.searchsorted(tail, cutoff, side="right"))
-        k = max(1, k - extra)
-    return max(k, 1)
-
-
-def split(theta: np.ndarray, chi: int, cutoff: float, to_right: bool, row_par=None, col_par=None,
-          truncation: str = "svd"):
-    """Truncated factorization ``theta ~ left @ right`` with the optimal rank-k projection.
-
-    ``to_right``: ``left`` has orthonormal columns and ``right`` carries the weight (the orthogonality centre
-    moves right); otherwise ``right`` has orthonormal rows. ``row_par``/``col_par``: Z2 parities of the rows and
-    columns of a block-diagonal ``theta`` (graded engine), or None.
-
-    ``truncation='svd'``: LAPACK gesdd (gesvd on failure). ``truncation='eigh'``: eigendecomposition of the Gram
-    matrix on the shorter side of each block (after a QR when the isometric side is the longer one), refined in
-    the orthogonal complement until the kept spectrum is resolved (:func:`_gram_top`); the weight-carrying factor
-    is the exact projection of theta on the kept vectors (no division by singular values), so the discarded
-    weight (the dropped eigenvalues) equals the norm loss to rounding. Matrices smaller than ``EIGH_MIN_DIM`` go to the SVD.
-    ``truncation='rsvd'``: :func:`_rsvd` on every block at least twice as large (both sides) as the
-    ``chi + RSVD_OVERSAMPLE`` columns it samples, the SVD on the others; the weight outside the sampled subspace
-    joins the discarded weight, so the ledger stays the norm loss.
-
-    Returns ``left, right, labels, discarded, route``: labels are the parities of the kept bond index (None when
-    ungraded), discarded is the summed squared singular values (eigenvalues) dropped, route is 'eigh', 'rsvd'
-    (some block took the randomized route) or 'svd'.
-    """
-    blocks = _blocks(theta, row_par, col_par)
-    if truncation == "eigh" and min(theta.shape) >= EIGH_MIN_DIM:
-        out = _split_eigh(blocks, chi, cutoff, to_right)
-        if out is not None:
-            return (*_assemble(theta.shape, blocks, out[0], graded=row_par is not None), out[1], "eigh")
-    parts, disc, randomized = _split_svd(blocks, chi, cutoff, to_right, truncation == "rsvd")
-    route = "rsvd" if randomized else "svd"
-    return (*_assemble(theta.shape, blocks, parts, graded=row_par is not None), disc, route)
-
-
-def _blocks(theta, row_par, col_par):
-    """``[(label, rows, cols, matrix)]``: the nonzero Z2 blocks of theta, or one block that is theta itself."""
-    if row_par is None:
-        return [(0, None, None, theta)]
-    out = []
-    for p in (0, 1):
-        r, c = np.flatnonzero(row_par == p), np.flatnonzero(col_par == p)
-        if r.size and c.size:
-            out.append((p, r, c, theta.take(r, axis=0).take(c, axis=1)))  # take: 2x faster than ix_
-    return out
-
-
-def _split_svd(blocks, chi, cutoff, to_right, randomized=False):
-    l = chi + RSVD_OVERSAMPLE
-    sampled = [randomized and rsvd_samples(m.shape, chi) for *_, m in blocks]
-    svds = [_rsvd(m, l) if r else (*_svd(m), 0.0) for r, (*_, m) in zip(sampled, blocks)]
-    s_all = np.concatenate([x[1] for x in svds])
-    order = np.argsort(-s_all, kind="stable")
-    k = keep_count(s_all[order], chi, cutoff)
-    kept = np.zeros(s_all.size, dtype=bool)
-    kept[order[:k]] = True
-    disc = float(np.sum(s_all[~kept] ** 2)) + sum(x[3] for x in svds)
-    parts, off = [], 0
-    for u, s, vt, _ in svds:
-        kp = int(np.count_nonzero(kept[off:off + s.size]))  # a block's kept values are its largest ones
-        off += s.size
-        u, s, vt = u[:, :kp], s[:kp], vt[:kp]
-        parts.append((u, s[:, None] * vt) if to_right else (u * s, vt))
-    return parts, disc, any(sampled)
-
-
-def rsvd_samples(shape, chi: int) -> bool:
-    """Whether the randomized route samples a block of this shape (both sides >= 2 (chi + RSVD_OVERSAMPLE));
-    smaller blocks take the SVD, which is faster there (measured crossover about 2-2.5x the sample size)."""
-    return min(shape) >= 2 * (chi + RSVD_OVERSAMPLE)
-
-
-def _test_matrix(n: int, l: int) -> np.ndarray:
-    """The fixed Gaussian test matrix (n, l) of the randomized route.
-
-    One array per l, grown when a larger n is asked for; rows are drawn in order from a generator seeded by
-    ``(RSVD_SEED, l)``, so the (n, l) matrix is the first n rows whatever was asked before: the truncation of a
-    given block does not depend on the history of the process (resumed runs and workers agree bit for bit).
-    """
-    om = _TEST_MATRICES.get(l)
-    if om is None or om.shape[0] < n:
-        om = np.random.default_rng([RSVD_SEED, l]).standard_normal((max(n, 4 * l), l))
-        _TEST_MATRICES[l] = om
-    return om[:n]
-
-
-_TEST_MATRICES: dict[int, np.ndarray] = {}
-
-
-def _rsvd(m: np.ndarray, l: int):
-    """SVD of m restricted to an l-dimensional subspace found by randomized subspace iteration.
-
-    Halko, Martinsson & Tropp, SIAM Rev. 53, 217 (2011), Algorithm 4.4 (randomized subspace iteration): Y = m
-    Omega for a Gaussian Omega (n, l), then ``RSVD_POWER`` times Y = m basis(m^T basis(Y)), every product
-    re-based so that small singular values are not lost to rounding as in plain powers (m m^T)^q m Omega. The
-    intermediate bases are the unit lower-trapezoidal LU factors with partial pivoting (same column space, well
-    conditioned, 4x cheaper than a QR at 512 x 144; LU re-basing as in Li et al., ACM TOMS 43, 28 (2017),
-    "Algorithm 971", cited from memory), the last one a QR, Q = orth(Y); then the exact SVD of the small
-    projection B = Q^T m = u s vt. Returns ``Q u, s, vt, rest`` with rest = |m|^2 - |B|^2, the weight of m
-    outside span(Q), which the truncation adds to the discarded weight: |m - Q u_k s_k vt_k|^2 = rest +
-    sum_{i>k} s_i^2 exactly (rest is a difference of weights of order |m|^2, exact to rounding of that size).
-    The singular values s are those of B, lower bounds of m's. With l = chi + 16 and two iterations, on the
-    gate matrices of the engine at L = 32, chi = 32-128, the truncation error exceeds the optimal one by at
-    most 2.2e-11 (absolute weight; ``scripts/bench/floor.py``, column rsvd_err).
-    """
-    from scipy.linalg import lu
-
-    q = m @ _test_matrix(m.shape[1], l)
-    for _ in range(RSVD_POWER):
-        q = lu(q, permute_l=True, overwrite_a=True, check_finite=False)[0]
-        q = lu(m.T @ q, permute_l=True, overwrite_a=True, check_finite=False)[0]
-        q = m @ q
-    q = np.linalg.qr(q)[0]
-    b = q.T @ m
-    u, s, vt = _svd(b)
-    rest = max(float(np.sum(m * m)) - float(np.sum(s * s)), 0.0)
-    return q @ u, s, vt, rest
-
-
-def _gram_top(m: np.ndarray, chi: int, floor2: float):
-    """Top left singular vectors of m (at most chi) and their squared singular values, from Gram matrices.
-
-    One eigendecomposition of m m^T resolves the eigenvalues down to ``EIGH_TRUST`` of the largest (below that,
-    rounding of order eps * lambda_max dominates). If more vectors are needed, the rest of the spectrum is
-    resolved in the orthogonal complement of the vectors taken: m is projected on it and the step repeats, each
-    pass reaching ``EIGH_TRUST`` deeper, until chi vectors are taken or what is left is below ``floor2``
-    (numerical zeros, like the SVD's floor). Returns (vectors (rows, k), eigenvalues (k,), weight not taken).
-    """
-    vecs, lams = [], []
-    need = min(chi, m.shape[0])
-    basis = None  # orthonormal basis of the current complement, in the original row space (None: all rows)
-    x = m
-    while True:
-        lam, vec = np.linalg.eigh(x @ x.T)
-        lam, vec = lam[::-1], vec[:, ::-1]
-        top = lam[0]
-        if not top > floor2:  # only numerical zeros remain
-            return _stack(vecs, lams, m.shape[0]), max(float(np.sum(np.clip(lam, 0.0, None))), 0.0)
-        take = min(need, int(np.count_nonzero(lam >= EIGH_TRUST * top)))
-        v = vec[:, :take]
-        vecs.append(v if basis is None else basis @ v)
-        lams.append(lam[:take])
-        need -= take
-        if need == 0 or take == lam.size:
-            rest = float(np.sum(np.clip(lam[take:], 0.0, None)))
-            return _stack(vecs, lams, m.shape[0]), rest
-        comp = vec[:, take:]
-        basis = comp if basis is None else basis @ comp
-        x = comp.T @ x
-
-
-def _stack(vecs, lams, rows):
-    if not vecs:
-        return np.zeros((rows, 0)), np.zeros(0)
-    return np.ascontiguousarray(np.hstack(vecs)), np.concatenate(lams)
-
-
-def _split_eigh(blocks, chi, cutoff, to_right):
-    mats = [m if to_right else m.T for *_, m in blocks]  # the rows of each matrix get the isometry
-    floor2 = (SVD_FLOOR ** 2) * max(float(np.sum(m * m)) for m in mats)
-    reduced = []
-    for m in mats:
-        if m.shape[0] > m.shape[1]:  # the Gram matrix on the shorter side: m = q r, decompose r
-            q, r = np.linalg.qr(m)
-            reduced.append((q, r))
-        else:
-            reduced.append((None, m))
-    tops = [_gram_top(r, chi, floor2) for _, r in reduced]
-    lam_all = np.concatenate([lam for (_, lam), _ in tops])
-    order = np.argsort(-lam_all, kind="stable")
-    lam_sorted = np.clip(lam_all[order], 0.0, None)
-    if lam_sorted.size == 0 or not lam_sorted[0] > 0:  # pragma: no cover - theta has unit weight
-        return None
-    k = keep_count(np.sqrt(lam_sorted), chi, cutoff)
-    kept = np.zeros(lam_all.size, dtype=bool)
-    kept[order[:k]] = True
-    disc = float(np.sum(lam_sorted[k:])) + sum(rest for _, rest in tops)
-    parts, off = [], 0
-    for (q, r), ((vec, lam), _) in zip(reduced, tops):
-        sel = kept[off:off + lam.size]
-        off += lam.size
-        v = vec[:, sel]
-        w = v.T @ r  # the exact projection of the block on the kept vectors: no division by singular values
-        if q is not None:
-            v = q @ v
-        parts.append((v, w) if to_right else (w.T, v.T))
-    return parts, disc
-
-
-def _assemble(shape, blocks, parts, graded):
-    """Put the blockwise factors into full ``left (m, k)``, ``right (k, n)``; labels of the kept bond index."""
-    if not graded:
-        return parts[0][0], parts[0][1], None
-    ks = [left.shape[1] for left, _ in parts]
-    k = sum(ks)
-    left = np.zeros((shape[0], k))
-    right = np.zeros((k, shape[1]))
-    lab = np.empty(k, dtype=np.int8)
-    off = 0
-    for (p, r, c, _), (lp, rp), kp in zip(blocks, parts, ks):
-        left[r, off:off + kp] = lp
-        right[off:off + kp, c] = rp
-        lab[off:off + kp] = p
-        off += kp
-    if k == 0:  # pragma: no cover - theta has unit weight, some block is nonzero
-        raise RuntimeError("empty truncation")
-    return left, right, lab
-
-
-def _svd(m: np.ndarray):
-    try:
-        return np.linalg.svd(m, full_matrices=False)
-    except np.linalg.LinAlgError:  # pragma: no cover - rare convergence failure of gesdd
-        import scipy.linalg
-
-        return scipy.linalg.svd(m, full_matrices=False, lapack_driver="gesvd")
 
 
 def _graded_qr(m: np.ndarray, row_par: np.ndarray, col_lab: np.ndarray):
@@ -608,3 +353,37 @@ def _graded_qr(m: np.ndarray, row_par: np.ndarray, col_lab: np.ndarray):
             q[rmask[p], off:off + k[p]] = parts[p][0]
             r[off:off + k[p], cmask[p]] = parts[p][1]
     return q, r, lab
+
+
+def bond_entropies(arrays: Sequence[np.ndarray], center: int) -> np.ndarray:
+    """Operator entanglement entropy of W(t) at every bond b (between sites b and b + 1), natural log.
+
+    With the MPS in mixed canonical form around ``center`` (sites left of it left-isometric, right of it
+    right-isometric), the Schmidt values of bond b are the singular values of the R factor met when the centre is
+    swept across that bond; the sweep here works on copies (the operator is unchanged). With p = s^2 / sum s^2,
+    S_b = -sum p ln p (0 for a bond of dimension 1). Cost: one QR per bond, O(L chi^3).
+    """
+    L = len(arrays)
+    out = np.zeros(max(L - 1, 0))
+
+    def entropy(r: np.ndarray) -> float:
+        if r.shape[0] == 1 or r.shape[1] == 1:
+            return 0.0
+        s = np.linalg.svd(r, compute_uv=False)
+        p = s * s
+        p = p[p > 0] / p.sum()
+        return float(-np.sum(p * np.log(p)))
+
+    A = arrays[center]
+    for b in range(center, L - 1):  # sweep right: A = Q R, carry R into site b + 1
+        Dl, _, Dr = A.shape
+        r = np.linalg.qr(A.reshape(Dl * 4, Dr), mode="r")
+        out[b] = entropy(r)
+        A = np.tensordot(r, arrays[b + 1], axes=(1, 0))
+    A = arrays[center]
+    for b in range(center - 1, -1, -1):  # sweep left: A^T = Q R, carry R^T into site b
+        Dl, _, Dr = A.shape
+        r = np.linalg.qr(A.reshape(Dl, 4 * Dr).T, mode="r")
+        out[b] = entropy(r)
+        A = np.tensordot(arrays[b], r.T, axes=(2, 0))
+    return out

@@ -28,7 +28,7 @@ from typing import Sequence
 import numpy as np
 
 from .errors import InputError
-from .evolve import _check_w, check_site
+from .evolve import check_site, check_w as _check_w
 from .schedules import DEFAULT_CHUNK, ORDERS, block_layers, step_plan
 from .schedules import check_times as _check_times
 from .models import Chain

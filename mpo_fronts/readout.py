@@ -201,6 +201,10 @@ class OtocResult:
         Largest bond dimension of the operator at each time.
     state_otoc : dict, probe -> ndarray (n_t, L)
         Product-state OTOCs when a basis state was given (empty for infinite temperature).
+    bond_discarded : ndarray (n_t, L-1) or None
+        Cumulative discarded weight per bond (where along the chain it was lost); sums to ``discarded_weight``.
+    bond_entropy : ndarray (n_t, L-1) or None
+        Operator entanglement entropy of W(t) at every bond (natural log).
     meta : dict
         How the result was obtained: method, chi, dt, order, cutoff, w, site, state, conventions.
     """
@@ -212,6 +216,19 @@ class OtocResult:
     max_bond: np.ndarray
     state_otoc: dict[str, np.ndarray] = field(default_factory=dict)
     meta: dict[str, Any] = field(default_factory=dict)
+    bond_discarded: np.ndarray | None = None
+    bond_entropy: np.ndarray | None = None
+
+    def __repr__(self) -> str:
+        m = self.meta
+        how = m.get("method", "?")
+        if how == "mpo_tebd":
+            how += (f", chi={m.get('chi')}, dt={m.get('dt')}, order={m.get('order')}, "
+                    f"discarded weight {float(self.discarded_weight[-1]):.3g}" if self.times.size else "")
+        state = f", state {m['state']}" if m.get("state") else ""
+        return (f"<OtocResult: operator {m.get('w', '?')} at site {m.get('site', '?')}, L={self.L}, "
+                f"{self.times.size} times in [{self.times.min():.4g}, {self.times.max():.4g}]{state}, {how}>"
+                if self.times.size else f"<OtocResult: L={self.L}, no times>")
 
     @property
     def L(self) -> int:
@@ -234,75 +251,3 @@ def read_operator(arrays: Sequence[np.ndarray], center: int | None = None, state
     if state is not None:
         out["state_otoc"] = {v: product_state_otoc(arrays, state, v) for v in probes}
     return out
-
-
-def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: float = 0.05, order: int = 2,
-                cutoff: float = 0.0, state: str | None = None, chunk: int | None = None,
-                progress=None, truncation: str = "svd", threads: int | None = 1) -> OtocResult:
-    """OTOCs C(r, t) of W at ``site`` with every probe site r, by Heisenberg-picture MPO TEBD.
-
-    Parameters
-    ----------
-    chain : Chain
-        The model (``xxz_chain``, ``mixed_field_ising_chain``, ``nn_chain``).
-    w : {'X', 'Y', 'Z'}
-        The evolved operator W.
-    site : int or 'center'
-        Site of W.
-    times : sequence of float
-        Strictly increasing output times (>= 0, units 1/J); any spacing.
-    chi, dt, order, cutoff, truncation
-        Engine settings (see :class:`mpo_fronts.evolve.OperatorTEBD`).
-    state : str, optional
-        None for infinite temperature, or a basis-state bitstring of length L ('0' = spin up) for the
-        product-state OTOC C_s(r, t) = 1 - Re <s|W(t) V_r W(t) V_r|s>.
-    progress : callable, optional
-        Called as ``progress(t)`` after every block of steps.
-    threads : int or None
-        BLAS threads during the evolution (threadpoolctl; default 1: the gate matrices are small, and several
-        threads on a shared machine slow them down). None leaves the BLAS setting as it is.
-
-    Returns
-    -------
-    OtocResult
-        ``res.otoc("X")`` is C(r, t) of shape (n_t, L); ``res.discarded_weight`` and ``res.max_bond`` carry
-        the truncation error information.
-
-    Examples
-    --------
-    >>> import mpo_fronts as mf
-    >>> res = mf.evolve_otoc(mf.xxz_chain(12, W=1.0, seed=3), w="Z", site=0, times=[1.0, 2.0], chi=32)
-    >>> res.otoc("X").shape
-    (2, 12)
-    """
-    from .evolve import DEFAULT_CHUNK, SVD_FLOOR, OperatorTEBD
-
-    eng = OperatorTEBD(chain, w=w, site=site, chi=chi, dt=dt, order=order, cutoff=cutoff,
-                       chunk=chunk or DEFAULT_CHUNK, truncation=truncation)
-    if state is not None:
-        check_bits(state, chain.L)
-    if threads is not None and (isinstance(threads, bool) or not isinstance(threads, int) or threads < 1):
-        raise InputError(f"threads (BLAS threads) must be a positive integer or None, got {threads!r}")
-    ts = np.asarray(times, dtype=float).reshape(-1)
-    n_t, L = ts.size, chain.L
-    weights = np.empty((n_t, L, 4))
-    right = np.empty((n_t, L))
-    disc = np.empty(n_t)
-    maxb = np.empty(n_t, dtype=int)
-    sotoc = {v: np.empty((n_t, L)) for v in PROBES} if state is not None else {}
-    hook = (lambda e: progress(e.t)) if progress is not None else None
-    from threadpoolctl import threadpool_limits
-
-    with threadpool_limits(limits=threads):  # limits=None leaves the BLAS setting as it is
-        for k, e in eng.run(ts, hook=hook):
-            m = read_operator(e.arrays, e.center, state)
-            weights[k], right[k] = m["weights"], m["right_weight"]
-            for v in sotoc:
-                sotoc[v][k] = m["state_otoc"][v]
-            disc[k], maxb[k] = e.discarded_weight, e.max_bond
-    meta = {"method": "mpo_tebd", "w": eng.w, "site": eng.site, "chi": eng.chi, "dt": eng.dt,
-            "max_step": eng.max_step, "order": eng.order, "cutoff": eng.cutoff, "state": state,
-            "svd_floor": SVD_FLOOR, "graded": eng.graded, "truncation": eng.truncation,
-            "splits": dict(eng.splits), "blas_threads": threads}
-    return OtocResult(times=ts, weights=weights, right_weight=right, discarded_weight=disc, max_bond=maxb,
-                      state_otoc=sotoc, meta=meta)

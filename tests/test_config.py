@@ -51,8 +51,8 @@ def test_defaults_are_resolved():
     assert d["model"] == {"kind": "xxz", "L": 6, "J": 1.0, "delta": 1.0, "W": 0.0}
     assert d["operators"] == {"w": "Z", "site": 0, "v": ["X", "Y", "Z"]}
     assert d["state"] == {"kind": "infinite_temperature"}
-    assert d["engine"] == {"chi": 64, "dt": 0.05, "order": 2, "cutoff": 0.0, "chunk": 20,
-                           "truncation": "svd"}
+    assert d["evolution"] == {"chi": 64, "dt": 0.05, "order": 2, "cutoff": 0.0, "chunk": 20,
+                              "truncation": "svd"}  # the table [engine] is now [evolution]
     assert d["ensemble"] == {"realizations": 1, "seed": 0}
     assert d["run"]["checkpoints"] is True and d["run"]["checkpoint_interval"] > 0
     ising = parse_description({"model": {"kind": "mixed_field_ising", "L": 6}, "times": {"values": [1.0]}})
@@ -140,7 +140,7 @@ def test_malformed_descriptions_name_the_key(changes, key):
 @pytest.mark.parametrize("raw,key,hint", [
     (base(engine__cutof=1e-12), "engine.cutof", "did you mean 'cutoff'"),
     (base(model__dleta=1.0), "model.dleta", "did you mean 'delta'"),
-    (base(model__chi=8), "model.chi", "engine.chi"),
+    (base(model__chi=8), "model.chi", "evolution.chi"),  # [engine] is now [evolution]
     ({**base(), "engin": {"chi": 4}}, "engin", "did you mean 'engine'"),
     (base(model__kind="xzz"), "model.kind", "did you mean 'xxz'"),
 ])
@@ -168,13 +168,51 @@ def test_config_error_pickles():
     assert isinstance(again, ConfigError) and again.key == "engine.chi" and str(again) == str(err)
 
 
+# A valid value, different from the default, for every key of the schema (the test below fails when a key is
+# added to the schema without an entry here, or when the parser accepts a key but ignores it).
+_NON_DEFAULT = {
+    "model": {"kind": "mixed_field_ising", "L": 9, "J": 0.5, "delta": 0.5, "W": 1.5,
+              "fields": [0.1] * 8, "couplings": [0.9] * 7, "g": 0.7, "h": 0.2},
+    "operators": {"w": "X", "site": 3, "v": ["Y"]},
+    "state": {"kind": "random_product", "bits": "01010101", "samples": 2},
+    "times": {"values": [0.25, 0.5], "start": 0.2, "stop": 3.0, "num": 5, "spacing": "linear"},
+    "evolution": {"chi": 7, "dt": 0.02, "order": 4, "cutoff": 1e-9, "chunk": 3, "truncation": "rsvd"},
+    "ensemble": {"realizations": 3, "seed": 11},
+    "run": {"label": "x", "checkpoints": False, "checkpoint_interval": 5.0, "claim_timeout": 60.0},
+}
+
+
+def _minimal_with(table, key, value):
+    """The smallest description in which table.key can be set (keys that need a partner get it)."""
+    d = {"model": {"kind": "xxz", "L": 8}, "times": {"values": [0.5, 1.0]}}
+    if table == "model" and key in ("g", "h"):
+        d["model"]["kind"] = "mixed_field_ising"
+    if table == "state" and key == "bits" and value is not None:
+        d["state"] = {"kind": "product"}
+    if table == "times" and key != "values":
+        d["times"] = {"start": 0.1, "stop": 2.0, "num": 4}
+    if (value is not None and table == "model" and key == "W") or (table == "state" and key == "samples") \
+            or (value is not None and table == "state" and key == "kind"):
+        d["ensemble"] = {"realizations": 2}
+    if table == "state" and key == "samples":
+        d["state"] = {"kind": "random_product"}
+    if table == "ensemble" and key == "realizations":
+        d["model"]["W"] = 1.0
+        value = 2 if value is None else value  # required with disorder: compare with another count
+    if value is not None:
+        d.setdefault(table, {})[key] = value
+    return d
+
+
 def test_schema_lists_every_key_the_parser_reads():
-    # every key of the schema is accepted somewhere (no dead entries)
-    assert set(SCHEMA) == {"model", "operators", "state", "times", "engine", "ensemble", "run"}
-    desc = parse_description(base(run__label="x", run__checkpoints=False, run__checkpoint_interval=5.0,
-                                  run__claim_timeout=60.0, engine__chunk=3))
-    assert desc.run_options == {"label": "x", "checkpoints": False, "checkpoint_interval": 5.0,
-                                "claim_timeout": 60.0}
+    # every key of the schema is read: setting it to a non-default value changes the resolved description
+    assert set(SCHEMA) == set(_NON_DEFAULT)
+    for table, keys in SCHEMA.items():
+        assert set(keys) == set(_NON_DEFAULT[table]), table
+        for key in keys:
+            plain = _minimal_with(table, key, None)  # without the key, or with the minimal value of a required one
+            changed = parse_description(_minimal_with(table, key, _NON_DEFAULT[table][key])).to_dict()
+            assert changed != parse_description(plain).to_dict(), f"{table}.{key} is accepted but ignored"
 
 
 def test_realization_fields_follow_the_documented_seed_scheme():
@@ -232,7 +270,7 @@ def test_fingerprint_ignores_how_not_what():
 def test_replace_revalidates():
     a = parse_description(base())
     assert a.replace(engine__chi=8).engine["chi"] == 8
-    with pytest.raises(ConfigError, match="engine.chi"):
+    with pytest.raises(ConfigError, match="evolution.chi"):  # the resolved table's name
         a.replace(engine__chi=-1)
 
 

@@ -6,8 +6,10 @@ import scipy.special
 
 import mpo_fronts as mf
 from mpo_fronts.errors import InputError
-from mpo_fronts.evolve import OperatorTEBD, block_layers, step_layers, step_plan
+from mpo_fronts.evolve import OperatorTEBD
+from mpo_fronts.schedules import block_layers, step_layers, step_plan
 import mpo_fronts.readout
+import mpo_fronts.truncation
 from mpo_fronts.exact import free_fermion_otoc
 
 BIG = 4096  # bond dimension never reached at these sizes: no truncation beyond numerical zeros
@@ -300,7 +302,7 @@ def test_eigh_split_is_the_optimal_truncation(m, n, to_right):
     s /= np.sqrt(np.sum(s ** 2))
     theta = _matrix(rng, m, n, s)
     chi = 50
-    left, right, lab, disc, route = mf.evolve.split(theta, chi, 0.0, to_right, truncation="eigh")
+    left, right, lab, disc, route = mf.truncation.split(theta, chi, 0.0, to_right, truncation="eigh")
     assert route == "eigh" and lab is None and left.shape[1] == chi
     iso = left.T @ left if to_right else right @ right.T
     assert np.abs(iso - np.eye(chi)).max() < 1e-12
@@ -331,7 +333,7 @@ def test_eigh_split_graded_blocks_and_cutoff_match_svd():
         theta[np.ix_(r, c)] = _matrix(rng, r.size, c.size, s)
     theta /= np.linalg.norm(theta)
     for cutoff in (0.0, 1e-9):
-        out = {tr: mf.evolve.split(theta, 40, cutoff, True, row_par, col_par, truncation=tr) for tr in ("svd", "eigh")}
+        out = {tr: mf.truncation.split(theta, 40, cutoff, True, row_par, col_par, truncation=tr) for tr in ("svd", "eigh")}
         assert out["eigh"][4] == "eigh" and out["svd"][4] == "svd"
         assert sorted(out["eigh"][2]) == sorted(out["svd"][2])
         assert abs(out["eigh"][3] - out["svd"][3]) <= 1e-8 * out["svd"][3]
@@ -346,7 +348,7 @@ def test_eigh_split_graded_blocks_and_cutoff_match_svd():
 
 def test_small_matrices_always_take_the_svd():
     theta = np.random.default_rng(0).normal(size=(40, 200))
-    assert mf.evolve.split(theta, 8, 0.0, True, truncation="eigh")[4] == "svd"
+    assert mf.truncation.split(theta, 8, 0.0, True, truncation="eigh")[4] == "svd"
 
 
 def _svd_and(kind, L, chi, route, graded):
@@ -386,7 +388,7 @@ def test_rsvd_split_against_the_optimal_truncation(to_right, decay):
     s = 10.0 ** (-0.15 * np.arange(n)) if decay == "steep" else 0.97 ** np.arange(n)
     s /= np.sqrt(np.sum(s ** 2))
     theta = _matrix(rng, m, n, s)
-    left, right, lab, disc, route = mf.evolve.split(theta, chi, 0.0, to_right, truncation="rsvd")
+    left, right, lab, disc, route = mf.truncation.split(theta, chi, 0.0, to_right, truncation="rsvd")
     assert route == "rsvd" and lab is None and left.shape[1] == chi
     iso = left.T @ left if to_right else right @ right.T
     assert np.abs(iso - np.eye(chi)).max() < 1e-12
@@ -417,14 +419,14 @@ def test_rsvd_split_graded_blocks_and_small_blocks():
         r, c = np.flatnonzero(row_par == p), np.flatnonzero(col_par == p)
         theta[np.ix_(r, c)] = _matrix(rng, r.size, c.size, 10.0 ** -np.linspace(p * 0.5, 10 + p, min(r.size, c.size)))
     theta /= np.linalg.norm(theta)
-    out = {tr: mf.evolve.split(theta, chi, 0.0, True, row_par, col_par, truncation=tr) for tr in ("svd", "rsvd")}
+    out = {tr: mf.truncation.split(theta, chi, 0.0, True, row_par, col_par, truncation=tr) for tr in ("svd", "rsvd")}
     assert out["rsvd"][4] == "rsvd" and out["svd"][4] == "svd"
     assert sorted(out["rsvd"][2]) == sorted(out["svd"][2])
     assert abs(out["rsvd"][3] - out["svd"][3]) <= 1e-8 * out["svd"][3]
     sv = {tr: np.sort(np.linalg.svd(o[0] @ o[1], compute_uv=False)[: o[0].shape[1]]) for tr, o in out.items()}
     assert np.abs(sv["rsvd"] / sv["svd"] - 1).max() < 1e-6
     small = np.random.default_rng(0).normal(size=(100, 200))  # 100 < 2 (40 + 16)
-    assert mf.evolve.split(small, 40, 0.0, True, truncation="rsvd")[4] == "svd"
+    assert mf.truncation.split(small, 40, 0.0, True, truncation="rsvd")[4] == "svd"
 
 
 @pytest.mark.parametrize("kind", ["mfi", "xxz"])
@@ -445,11 +447,11 @@ def test_rsvd_engine_equals_svd_engine(kind):
 def test_rsvd_test_matrix_does_not_depend_on_history():
     # the (n, l) test matrix is the same whether or not larger ones were drawn before: resumed runs and workers
     # truncate every block identically
-    mf.evolve._TEST_MATRICES.clear()
-    small = mf.evolve._test_matrix(50, 20).copy()
-    mf.evolve._TEST_MATRICES.clear()
-    mf.evolve._test_matrix(500, 20)
-    assert np.array_equal(mf.evolve._test_matrix(50, 20), small)
+    mf.truncation._TEST_MATRICES.clear()
+    small = mf.truncation._test_matrix(50, 20).copy()
+    mf.truncation._TEST_MATRICES.clear()
+    mf.truncation._test_matrix(500, 20)
+    assert np.array_equal(mf.truncation._test_matrix(50, 20), small)
 
 
 def test_truncation_must_be_known():

@@ -52,7 +52,7 @@ def test_create_refuses_other_descriptions_and_foreign_directories(tmp_path):
     run = tmp_path / "run"
     RunDirectory.create(run, desc())
     before = (run / "run.json").read_bytes()
-    with pytest.raises(RunDirectoryError, match="engine.chi: stored 8, given 9"):
+    with pytest.raises(RunDirectoryError, match="evolution.chi: stored 8, given 9"):
         RunDirectory.create(run, desc(engine__chi=9))
     assert (run / "run.json").read_bytes() == before  # nothing overwritten
     RunDirectory.create(run, desc(run__checkpoint_interval=5.0))  # how, not what: accepted

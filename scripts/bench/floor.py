@@ -35,6 +35,7 @@ import scipy.linalg  # noqa: E402
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 import mpo_fronts as mf  # noqa: E402
 import mpo_fronts.evolve as ev  # noqa: E402
+import mpo_fronts.truncation as tr  # noqa: E402
 from common import limit_blas, table, write_json  # noqa: E402
 
 OVERSAMPLE = 10
@@ -65,10 +66,10 @@ def _rand(m, chi):
 
 
 def _engine_rsvd(m, chi):
-    """The engine's randomized route (evolve._rsvd) where it applies, gesdd elsewhere (as the engine does)."""
-    if not ev.rsvd_samples(m.shape, chi):
+    """The engine's randomized route (truncation._rsvd) where it applies, gesdd elsewhere (as the engine does)."""
+    if not tr.rsvd_samples(m.shape, chi):
         return np.linalg.svd(m, full_matrices=False)
-    return ev._rsvd(m, chi + ev.RSVD_OVERSAMPLE)[:3]
+    return tr._rsvd(m, chi + tr.RSVD_OVERSAMPLE)[:3]
 
 
 METHODS = {"gesdd": _gesdd, "gesvd": _gesvd, "eig (quimb svd_via_eig)": _eig, "randomized (quimb rsvd)": _rand,
@@ -111,21 +112,26 @@ def measure(chain, chi, t0, steps, graded, truncation="svd", dt=0.05):
         next(gen)
         step_times.append(time.perf_counter() - t_a)
     captured = []  # (full gate matrix, its Z2 blocks) of one more step
-    original = ev.split
+    original = tr.route(truncation)
 
-    def recorder(theta, chi_, cutoff, to_right, row_par=None, col_par=None, truncation="svd"):
-        blocks = [m.copy() for *_, m in ev._blocks(theta, row_par, col_par)]
-        captured.append((theta.copy(), blocks))
-        return original(theta, chi_, cutoff, to_right, row_par, col_par, truncation)
+    def recorder(blocks, chi_, cutoff, to_right, shape):
+        theta = np.zeros(shape)
+        for _, rows, cols, m in blocks:
+            if rows is None:
+                theta = m.copy()
+            else:
+                theta[np.ix_(rows, cols)] = m
+        captured.append((theta, [m.copy() for *_, m in blocks]))
+        return original.split_blocks(blocks, chi_, cutoff, to_right, shape)
 
-    ev.split = recorder
+    tr.register_route(truncation, recorder, "captures the blocks of one step", replace=True)  # a wrapped route
     try:
         next(gen)
     finally:
-        ev.split = original
+        tr.register_route(truncation, original.split_blocks, original.summary, replace=True)
     dense = sum(time_call(_gesdd, th, chi) for th, _ in captured)
     blocks = [m for _, bl in captured for m in bl]
-    keep = [min(chi, int(np.count_nonzero(s > ev.SVD_FLOOR * s[0]))) for s in
+    keep = [min(chi, int(np.count_nonzero(s > tr.SVD_FLOOR * s[0]))) for s in
             (np.linalg.svd(m, compute_uv=False) for m in blocks)]
     floors, errors = {}, {}
     for name, fn in METHODS.items():
@@ -162,16 +168,16 @@ def end_to_end(chain, chi, t, dt=0.05):
     time against the gesdd engine."""
     out = []
     times = [t / 4, t / 2, t]
-    original = ev._svd
     runs = []
-    for name, fn in METHODS.items():
+    for i, (name, fn) in enumerate(METHODS.items()):
         if name == "rsvd (engine)":
             continue  # run through the engine's own option below
-        ev._svd = _with_tail(fn, chi)
+        route_name = f"bench_method_{i}"  # a registered route that splits with this method
+        tr.register_route(route_name, tr.svd_route(_with_tail(fn, chi), route_name), name, replace=True)
         try:
-            runs.append((name, *_run_engine(chain, chi, times, dt=dt)))
+            runs.append((name, *_run_engine(chain, chi, times, route_name, dt=dt)))
         finally:
-            ev._svd = original
+            tr.unregister_route(route_name)
     runs.append(("engine truncation='eigh'", *_run_engine(chain, chi, times, "eigh", dt=dt)))
     runs.append(("engine truncation='rsvd'", *_run_engine(chain, chi, times, "rsvd", dt=dt)))
     _, ref, t_ref, _ = runs[0]

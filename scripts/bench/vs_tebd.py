@@ -41,7 +41,7 @@ def main(argv=None) -> None:
     ap.add_argument("--t", type=float, default=4.0)
     ap.add_argument("--dt", type=float, default=0.05)
     ap.add_argument("--chains", nargs="+", default=list(CHAINS), choices=list(CHAINS))
-    ap.add_argument("--truncations", nargs="+", default=["svd"], choices=list(mf.evolve.TRUNCATIONS),
+    ap.add_argument("--truncations", nargs="+", default=["svd"], choices=list(mf.truncation.route_names()),
                     help="engine truncation routes, each against the same quimb run")
     ap.add_argument("--name", default="vs_tebd", help="JSON file name under data/benchmarks/")
     args = ap.parse_args(argv)

@@ -1,0 +1,136 @@
+"""The evolution settings: one frozen, validated object from the keyword arguments or the ``[evolution]`` table.
+
+:class:`EvolutionSettings` holds what decides how W(t) is computed: bond dimension, Trotter step and order,
+cutoff, steps per block, truncation route. It is validated once where it enters (keyword arguments of
+:func:`mpo_fronts.evolve_otoc`, a run description's ``[evolution]`` table, a command-line override), handed
+unchanged to the engine and written unchanged into every result file (:meth:`EvolutionSettings.to_dict`).
+Errors raised for keyword arguments are :class:`~mpo_fronts.errors.InputError` naming the argument; for a run
+description :meth:`EvolutionSettings.from_table` turns them into :class:`~mpo_fronts.errors.ConfigError`
+naming the dotted key (``evolution.chi``).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass
+from numbers import Integral, Real
+from typing import Any, Mapping
+
+import numpy as np
+
+from .errors import ConfigError, InputError
+from .schedules import DEFAULT_CHUNK, ORDERS
+from .truncation import route, route_names
+
+__all__ = ["EvolutionSettings", "SETTINGS_KEYS"]
+
+_WHAT = {
+    "chi": "a positive integer (maximum bond dimension)",
+    "dt": "a positive number (largest Trotter step, units of 1/J)",
+    "order": "2 or 4 (Trotter order)",
+    "cutoff": "a number in [0, 1) (discarded weight per truncation)",
+    "chunk": "a positive integer (Trotter steps per block)",
+}
+
+
+@dataclass(frozen=True)
+class EvolutionSettings:
+    """How W(t) is evolved and truncated.
+
+    Parameters
+    ----------
+    chi : int
+        Maximum bond dimension (default 64).
+    dt : float
+        Largest Trotter step, units of 1/J (default 0.05); steps are shortened to land on every output time.
+    order : {2, 4}
+        Trotter order (default 2).
+    cutoff : float
+        Largest summed squared singular value dropped per truncation, absolute weight (W has unit weight);
+        default 0 (only ``chi`` limits the bond).
+    chunk : int
+        Trotter steps per block: merging of half layers stops, checkpoints and progress happen at block ends
+        (default 20).
+    truncation : str
+        A registered truncation route (:func:`mpo_fronts.truncation.route_names`): 'svd' (default), 'rsvd',
+        'eigh'.
+
+    Examples
+    --------
+    >>> s = EvolutionSettings(chi=32, dt=0.1)
+    >>> s.replace(chi=64).chi, s.to_dict()["truncation"]
+    (64, 'svd')
+    """
+
+    chi: int = 64
+    dt: float = 0.05
+    order: int = 2
+    cutoff: float = 0.0
+    chunk: int = DEFAULT_CHUNK
+    truncation: str = "svd"
+
+    def __post_init__(self):
+        def setv(name, value):
+            object.__setattr__(self, name, value)
+
+        setv("chi", _positive_int("chi", self.chi))
+        dt = self.dt
+        if isinstance(dt, bool) or not isinstance(dt, Real) or not np.isfinite(dt) or dt <= 0:
+            raise InputError(f"dt must be {_WHAT['dt']}, got {dt!r}", arg="dt")
+        setv("dt", float(dt))
+        if isinstance(self.order, bool) or self.order not in ORDERS:
+            raise InputError(f"order must be {_WHAT['order']}, got {self.order!r}", arg="order")
+        setv("order", int(self.order))
+        c = self.cutoff
+        if isinstance(c, bool) or not isinstance(c, Real) or not (0 <= c < 1):
+            raise InputError(f"cutoff must be {_WHAT['cutoff']}, got {c!r}", arg="cutoff")
+        setv("cutoff", float(c))
+        setv("chunk", _positive_int("chunk", self.chunk))
+        route(self.truncation)  # raises an InputError naming 'truncation' and the registered routes
+
+    # ---------------------------------------------------------------- construction
+    @classmethod
+    def from_table(cls, table: Mapping[str, Any] | None, prefix: str = "evolution") -> "EvolutionSettings":
+        """Settings from a run description's table; errors are ConfigErrors naming ``prefix.key``."""
+        table = dict(table or {})
+        unknown = sorted(set(table) - set(SETTINGS_KEYS))
+        if unknown:
+            import difflib
+
+            close = difflib.get_close_matches(unknown[0], SETTINGS_KEYS, n=1, cutoff=0.6)
+            hint = f"; did you mean '{close[0]}'?" if close else f"; valid keys: {', '.join(SETTINGS_KEYS)}"
+            raise ConfigError(f"{prefix}.{unknown[0]}", f"unknown key{hint}")
+        for key in ("chi", "chunk"):  # TOML integers only: 16.0 or "16" are typing mistakes worth naming
+            if key in table and (isinstance(table[key], bool) or not isinstance(table[key], Integral)):
+                raise ConfigError(f"{prefix}.{key}", f"expected {_WHAT[key]}, got {table[key]!r}")
+        for key in ("dt", "cutoff"):
+            if key in table and (isinstance(table[key], bool) or not isinstance(table[key], Real)):
+                raise ConfigError(f"{prefix}.{key}", f"expected {_WHAT[key]}, got {table[key]!r}")
+        try:
+            return cls(**table)
+        except InputError as exc:
+            key = exc.arg or ""
+            what = _WHAT.get(key)
+            msg = f"expected {what}, got {table.get(key)!r}" if what else str(exc)
+            if key == "truncation":
+                routes = ", ".join(f'"{t}"' for t in route_names())
+                msg = f"expected one of {routes} (how gates are truncated), got {table.get(key)!r}"
+            raise ConfigError(f"{prefix}.{key}" if key else prefix, msg) from None
+
+    def replace(self, **changes) -> "EvolutionSettings":
+        """A new, validated copy with some settings changed (``None`` values are ignored)."""
+        return dataclasses.replace(self, **{k: v for k, v in changes.items() if v is not None})
+
+    def to_dict(self) -> dict[str, Any]:
+        """The settings as plain numbers and strings (what result files and run descriptions store)."""
+        return dataclasses.asdict(self)
+
+
+#: The keys of the ``[evolution]`` table, in the order of :class:`EvolutionSettings`.
+SETTINGS_KEYS = tuple(f.name for f in dataclasses.fields(EvolutionSettings))
+
+
+def _positive_int(name: str, value) -> int:
+    if isinstance(value, bool) or not isinstance(value, Integral) or value < 1:
+        raise InputError(f"{name} must be {_WHAT[name]}, got {value!r}", arg=name)
+    return int(value)
