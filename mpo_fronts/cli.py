@@ -67,7 +67,7 @@ def _shard(text: str):
     try:
         return parse_shard(text)
     except InputError as exc:
-        raise argparse.ArgumentTypeError(str(exc).replace("--shard ", "")) from None
+        raise argparse.ArgumentTypeError(str(exc)) from None
 
 
 def _dask(text: str) -> str:
@@ -76,7 +76,7 @@ def _dask(text: str) -> str:
     try:
         parse_dask(text)
     except InputError as exc:
-        raise argparse.ArgumentTypeError(str(exc).replace("--dask ", "")) from None
+        raise argparse.ArgumentTypeError(str(exc)) from None
     return text
 
 
@@ -358,7 +358,7 @@ def _cmd_merge(args) -> int:
 
 def _cmd_check(args) -> int:
     from .config import read_description
-    from .ensemble import check_against_exact
+    from .workflows import check_against_exact
 
     desc = read_description(args.description)
     if args.L > desc.L:
@@ -367,35 +367,35 @@ def _cmd_check(args) -> int:
         raise InputError(f"--L = {args.L}: the exact check uses dense evolution, so --L must be at most 12")
     res = check_against_exact(desc, L=args.L, realizations=args.realizations,
                               progress=None if args.json else (lambda msg: print("  " + msg, flush=True)))
-    ok = res["max_deviation"] <= args.tol
+    ok = res.max_deviation <= args.tol
     if args.json:
-        print(json.dumps({**res, "tol": args.tol, "ok": ok}, indent=1))
+        print(json.dumps({**res.to_dict(), "tol": args.tol, "ok": ok}, indent=1))
     else:
-        w = res["where"]
-        e = res["engine"]
-        _say(f"check at L = {res['L']} (W at site {res['site']}), chi={e['chi']}, dt={e['dt']}, order {e['order']}, "
-             f"cutoff {e['cutoff']:g}, {len(res['per_realization'])} realization(s) against dense exact evolution",
-             f"largest |C_engine - C_exact| = {res['max_deviation']:.3g} (realization {w['realization']}, probe "
+        w = res.where
+        e = res.engine
+        _say(f"check at L = {res.L} (W at site {res.site}), chi={e['chi']}, dt={e['dt']}, order {e['order']}, "
+             f"cutoff {e['cutoff']:g}, {len(res.per_realization)} realization(s) against dense exact evolution",
+             f"largest |C_engine - C_exact| = {res.max_deviation:.3g} (realization {w['realization']}, probe "
              f"{w['probe']}, t = {w['t']:g}, r = {w['r']}); tolerance {args.tol:g}: {'OK' if ok else 'EXCEEDED'}",
              _exceeded_line(res, args.tol),
              "largest discarded weight: "
-             f"{max(p['discarded_weight'] for p in res['per_realization']):.3g} (a deviation with no discarded "
-             "weight is Trotter error: lower engine.dt or use engine.order = 4)")
+             f"{max(p['discarded_weight'] for p in res.per_realization):.3g} (a deviation with no discarded "
+             "weight is Trotter error: lower evolution.dt or use evolution.order = 4)")
     return 0 if ok else 1
 
 
-def _exceeded_line(res: dict, tol: float) -> str:
-    over = [t for t, d in zip(res["times"], res["deviation_by_time"]) if d > tol]
+def _exceeded_line(res, tol: float) -> str:
+    over = [t for t, d in zip(res.times, res.deviation_by_time) if d > tol]
     if not over:
-        return f"every time point is within the tolerance (t up to {res['times'][-1]:g})"
-    ok = [t for t, d in zip(res["times"], res["deviation_by_time"]) if t < over[0]]
+        return f"every time point is within the tolerance (t up to {res.times[-1]:g})"
+    ok = [t for t, d in zip(res.times, res.deviation_by_time) if t < over[0]]
     return (f"within the tolerance up to t = {ok[-1]:g}; exceeded from t = {over[0]:g} on" if ok
             else f"exceeded already at the first time t = {over[0]:g}")
 
 
 def _cmd_converge(args) -> int:
     from .config import read_description
-    from .ensemble import converge
+    from .workflows import converge
 
     desc = read_description(args.description)
     if args.dask is not None and args.workers > 1:
@@ -493,7 +493,7 @@ _DEMO_THRESHOLDS = {"thermal": 0.5, "localized": 0.05}
 
 def _cmd_demo(args) -> int:
     from .config import read_description
-    from .ensemble import converge
+    from .workflows import converge
     from .store import RunDirectory
 
     data = _demo_data(args.data)
@@ -541,6 +541,12 @@ def _paragraph(message: str) -> str:
     return textwrap.fill(" ".join(str(message).split()), width=100, subsequent_indent="  ")
 
 
+#: Library argument names (InputError.arg) -> the command-line option that sets them, for error messages.
+_FLAGS = {"L": "--L", "realizations": "--realizations", "chis": "--chi", "probe": "--probe", "shard": "--shard",
+          "dask": "--dask", "workers": "--workers", "overwrite": "--force", "tol": "--tol", "dt": "--dt",
+          "threshold": "--threshold", "only": "--only"}
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``fronts`` console script; returns the exit code."""
     parser = build_parser()
@@ -548,7 +554,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         return _COMMANDS[args.command](args)
     except UserError as exc:
-        print(_paragraph(f"fronts {args.command}: error: {exc}"), file=sys.stderr)
+        flag = _FLAGS.get(getattr(exc, "arg", None) or "")
+        where = f" (command-line option {flag})" if flag else ""
+        print(_paragraph(f"fronts {args.command}: error: {exc}{where}"), file=sys.stderr)
         return EXIT_USER_ERROR
     except FrontsError as exc:
         print(_paragraph(f"fronts {args.command}: {exc}"), file=sys.stderr)

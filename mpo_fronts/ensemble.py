@@ -41,7 +41,7 @@ from .settings import EvolutionSettings
 from .store import ClaimInfo, RunDirectory
 
 __all__ = ["run_ensemble", "compute_realization", "evolve_realization", "shard_indices", "parse_shard",
-           "parse_dask", "check_against_exact", "converge", "RunReport", "WorkerDied"]
+           "parse_dask", "RunReport", "WorkerDied"]
 
 _BLAS_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "BLIS_NUM_THREADS",
               "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
@@ -59,9 +59,9 @@ def parse_shard(text: str) -> tuple[int, int]:
         k_s, n_s = str(text).split("/")
         k, n = int(k_s), int(n_s)
     except ValueError:
-        raise InputError(f"--shard must look like K/N (for example 0/4), got {text!r}") from None
+        raise InputError(f"shard must look like K/N (for example 0/4), got {text!r}", arg="shard") from None
     if n < 1 or not 0 <= k < n:
-        raise InputError(f"--shard K/N needs N >= 1 and 0 <= K < N (K counts from 0), got {text!r}")
+        raise InputError(f"shard K/N needs N >= 1 and 0 <= K < N (K counts from 0), got {text!r}", arg="shard")
     return k, n
 
 
@@ -74,20 +74,21 @@ def shard_indices(n_realizations: int, shard: tuple[int, int] | None = None) -> 
 def parse_dask(spec: str) -> tuple[str, Any]:
     """``"local:N"`` -> ("local", N); ``"tcp://host:port"`` (or tls://, ws://, inproc://) -> ("address", spec)."""
     if not isinstance(spec, str):
-        raise InputError(f"--dask must be local:N or a scheduler address like tcp://host:8786, got {spec!r}")
+        raise InputError(f"dask must be local:N or a scheduler address like tcp://host:8786, got {spec!r}",
+                         arg="dask")
     if spec.startswith("local:"):
         try:
             n = int(spec[6:])
         except ValueError:
             n = 0
         if n < 1:
-            raise InputError(f"--dask local:N needs a positive number of workers N, got {spec!r}")
+            raise InputError(f"dask = local:N needs a positive number of workers N, got {spec!r}", arg="dask")
         return "local", n
     if "://" in spec and spec.split("://", 1)[0] in ("tcp", "tls", "ws", "wss", "inproc", "ucx") \
             and spec.split("://", 1)[1]:
         return "address", spec
-    raise InputError(f"--dask must be local:N (a local Dask cluster of N processes) or a scheduler address "
-                     f"like tcp://host:8786, got {spec!r}")
+    raise InputError(f"dask must be local:N (a local Dask cluster of N processes) or a scheduler address "
+                     f"like tcp://host:8786, got {spec!r}", arg="dask")
 
 
 # ------------------------------------------------------------------------------------------- threads
@@ -549,104 +550,3 @@ def _close_dask(client, cluster) -> None:
     if cluster is not None:
         with contextlib.suppress(Exception):
             cluster.close()
-
-
-# ------------------------------------------------------------------------------------------- check and converge
-def check_against_exact(description: RunDescription, L: int = 10, realizations: int = 2,
-                        progress: Callable[[str], None] | None = None) -> dict:
-    """Run the description at a small L with exact evolution beside the engine, on identical disorder.
-
-    Realization k keeps the first ``L`` fields, couplings and basis-state bits of its full-size draw; the site
-    of W keeps its relative position (:meth:`RunDescription.site_at`). Engine settings (chi, dt, order, cutoff)
-    are those of the description, so the deviation measures Trotter and truncation error together.
-
-    Returns
-    -------
-    dict
-        ``max_deviation`` (largest |C_engine - C_exact| over realizations, probes, times, sites), ``where``
-        (realization, probe, time, site of it), ``per_realization`` [{k, max_deviation, discarded_weight,
-        max_bond}], ``L``, ``site``, ``engine``.
-    """
-    from . import exact_otoc
-
-    if isinstance(L, bool) or not isinstance(L, int) or not 2 <= L <= 12:
-        raise InputError(f"--L must be an integer in 2..12 for the exact check (dense evolution), got {L!r}")
-    if L > description.L:
-        raise InputError(f"--L = {L} exceeds the chain length of the description (model.L = {description.L})")
-    if isinstance(realizations, bool) or not isinstance(realizations, int) or realizations < 1:
-        raise InputError(f"--realizations must be a positive integer, got {realizations!r}")
-    site = description.site_at(L)
-    times = description.times
-    worst = {"max_deviation": -1.0}
-    per = []
-    by_time = np.zeros(times.size)
-    with contextlib.ExitStack() as stack:
-        from threadpoolctl import threadpool_limits
-
-        stack.enter_context(threadpool_limits(limits=1))
-        for k in range(min(realizations, description.realizations)):
-            real = description.truncated_realization(k, L)
-            res = evolve_realization(real.chain, w=description.w, site=site, times=times,
-                                     settings=description.settings, probes=description.probes, bits=real.bits)
-            dev_k = 0.0
-            states = real.bits if real.bits is not None else [None]
-            for s, bits in enumerate(states):
-                ex = exact_otoc(real.chain, description.w, site, times, state=bits)
-                for v in description.probes:
-                    mine = res["state_otoc"][v][s] if bits is not None else res["otoc"][v]
-                    dev = np.abs(mine - ex.otoc(v))
-                    by_time = np.maximum(by_time, dev.max(axis=1))
-                    i = np.unravel_index(int(np.argmax(dev)), dev.shape)
-                    if dev[i] > worst["max_deviation"]:
-                        worst = {"max_deviation": float(dev[i]), "where": {
-                            "realization": k, "probe": v, "state": bits, "t": float(times[i[0]]), "r": int(i[1])}}
-                    dev_k = max(dev_k, float(dev.max()))
-            per.append({"k": k, "max_deviation": dev_k, "discarded_weight": float(res["discarded_weight"][-1]),
-                        "max_bond": int(res["max_bond"].max())})
-            if progress is not None:
-                progress(f"realization {k}: largest deviation {dev_k:.3g}, discarded weight "
-                         f"{per[-1]['discarded_weight']:.3g}")
-    return {**worst, "per_realization": per, "L": L, "site": site, "engine": description.engine,
-            "times": times.tolist(), "deviation_by_time": by_time.tolist()}
-
-
-def converge(description: RunDescription, chis: Sequence[int], out, *, dt: float | None = None,
-             probe: str | None = None, tol: float = 1e-2, **run_kwargs) -> dict:
-    """Run the description at each bond dimension into ``out/chi_016`` ... and store the convergence arrays.
-
-    Every chi uses the same seeds (identical disorder). The OTOCs of ``probe`` (default: the first stored probe)
-    go to :func:`mpo_fronts.analysis.bond_convergence`, whose result is written to ``out/convergence.h5``;
-    ``mpo_fronts.load(out)`` then loads the largest chi with ``.convergence`` attached.
-
-    Returns
-    -------
-    dict
-        The convergence arrays (see :func:`mpo_fronts.analysis.bond_convergence`).
-    """
-    from .store import atomic_h5, load, _write_convergence_group, CONVERGENCE_FILE, RUN_FILE
-
-    chis = sorted({int(c) for c in chis})
-    if len(chis) < 2 or chis[0] < 1:
-        raise InputError(f"--chi needs at least two distinct positive bond dimensions, got {list(chis)}")
-    probe = probe or description.probes[0]
-    if probe not in description.probes and description.state_kind != "infinite_temperature":
-        raise InputError(f"--probe {probe!r} is not stored by the description (operators.v = "
-                         f"{list(description.probes)})")
-    out = Path(out)
-    if (out / RUN_FILE).is_file():
-        raise InputError(f"{out} is a run directory; give converge a new directory (it creates chi_* inside)")
-    descs = {chi: description.replace(engine__chi=chi, **({"engine__dt": dt} if dt is not None else {}))
-             for chi in chis}
-    for chi, d in descs.items():  # check every target before any work starts
-        RunDirectory.check_target(out / f"chi_{chi:03d}", d)
-    from .analysis import bond_convergence  # noqa: F401  (fail early if missing)
-
-    otoc_by_chi = {}
-    for chi, d in descs.items():
-        run_ensemble(d, out / f"chi_{chi:03d}", **run_kwargs)
-        otoc_by_chi[chi] = load(out / f"chi_{chi:03d}").otoc(probe)
-    conv = dict(bond_convergence(otoc_by_chi, tol))
-    conv.setdefault("probe", probe)
-    conv.setdefault("tol", tol)
-    atomic_h5(out / CONVERGENCE_FILE, lambda f: _write_convergence_group(f, conv))
-    return conv

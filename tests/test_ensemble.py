@@ -10,7 +10,8 @@ import pytest
 
 import mpo_fronts as mf
 from mpo_fronts.config import parse_description
-from mpo_fronts.ensemble import (check_against_exact, compute_realization, parse_dask, parse_shard, run_ensemble,
+from mpo_fronts.workflows import check_against_exact
+from mpo_fronts.ensemble import (compute_realization, parse_dask, parse_shard, run_ensemble,
                                  shard_indices)
 from mpo_fronts.errors import InputError, RunDirectoryError
 from mpo_fronts.store import RunDirectory
@@ -45,12 +46,14 @@ def test_parsers():
     assert parse_shard("1/3") == (1, 3) and shard_indices(10, (1, 3)) == [1, 4, 7]
     assert sorted(shard_indices(10, (0, 2)) + shard_indices(10, (1, 2))) == list(range(10))
     for bad in ("3/3", "-1/2", "1", "a/b", "0/0"):
-        with pytest.raises(InputError, match="--shard"):
+        with pytest.raises(InputError, match="shard") as info:  # the library names its argument, not a flag
             parse_shard(bad)
+        assert info.value.arg == "shard"
     assert parse_dask("local:3") == ("local", 3) and parse_dask("tcp://10.0.0.1:8786")[0] == "address"
     for bad in ("local:0", "local:x", "10.0.0.1:8786", "tcp://"):
-        with pytest.raises(InputError, match="--dask"):
+        with pytest.raises(InputError, match="dask") as info:
             parse_dask(bad)
+        assert info.value.arg == "dask"
 
 
 def test_option_errors_write_nothing(tmp_path):
@@ -222,13 +225,14 @@ def test_check_against_exact():
         "ensemble": {"realizations": 3, "seed": 1},
     })
     res = check_against_exact(d, L=6, realizations=2)
-    assert res["L"] == 6 and res["site"] == 3 and len(res["per_realization"]) == 2
+    assert res.L == 6 and res.site == 3 and len(res.per_realization) == 2
     # chi = 64 is exact at L = 6 (4^3); fourth-order Trotter error at dt = 0.05 is far below 1e-5
-    assert res["max_deviation"] < 1e-5
+    assert res.max_deviation < 1e-5
     coarse = check_against_exact(d.replace(engine__dt=0.5, engine__order=2), L=6, realizations=1)
-    assert coarse["max_deviation"] > 10 * res["max_deviation"]  # the check sees Trotter error
-    with pytest.raises(InputError, match="--L"):
+    assert coarse.max_deviation > 10 * res.max_deviation  # the check sees Trotter error
+    with pytest.raises(InputError, match="L must be an integer in 2..12") as info:  # argument, not CLI flag
         check_against_exact(d, L=13)
+    assert info.value.arg == "L"
 
 
 def test_mixed_field_ising_pipeline_against_exact(tmp_path):
