@@ -143,7 +143,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="fronts", description="OTOC light cones in 1D spin chains by Heisenberg-picture MPO "
                      "TEBD: production runs, checks, summaries and figures.",
                      epilog="Start with 'fronts demo'. Every command has --help.")
-    from . import __version__
+    from .conventions import __version__
 
     parser.add_argument("--version", action="version", version=f"mpo_fronts {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)

@@ -411,6 +411,6 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
 
 
 def _metadata(fmt: str) -> dict[str, str]:
-    from . import __version__
+    from .conventions import __version__
 
     return {("Software" if fmt == "png" else "Creator"): f"mpo_fronts {__version__}"}
