@@ -51,16 +51,6 @@ def _positive_float(text: str) -> float:
     return v
 
 
-def _nonneg_float(text: str) -> float:
-    try:
-        v = float(text)
-    except ValueError:
-        v = -1.0
-    if not v >= 0 or v == float("inf"):
-        raise argparse.ArgumentTypeError(f"expected a number >= 0, got {text!r}")
-    return v
-
-
 def _shard(text: str):
     from .ensemble import parse_shard
 
@@ -445,13 +435,7 @@ def _load(path):
 
 
 def _summary_text(summary: dict) -> str:
-    try:
-        fmt = _need_analysis("format_summary")
-    except UserError:
-        fmt = None
-    if fmt is not None:
-        return fmt(summary)
-    return json.dumps(summary, indent=1)  # pragma: no cover - older analysis modules
+    return _need_analysis("format_summary")(summary)
 
 
 def _cmd_summary(args) -> int:

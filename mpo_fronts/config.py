@@ -561,7 +561,7 @@ class RunDescription:
             if fields is None:
                 fields = rng.uniform(-W, W, size=L) if W > 0 else np.zeros(L)
             chain = xxz_chain(L, J=m["J"], delta=m["delta"], W=0.0, fields=fields, couplings=couplings)
-            chain.params["W"] = W
+            chain = _with_params(chain, W=W)
         else:
             chain = mixed_field_ising_chain(L, J=m["J"], g=m["g"], h=m["h"])
         if st["kind"] == "product":
@@ -571,7 +571,7 @@ class RunDescription:
             bits = tuple("".join("01"[b] for b in row) for row in draws)
         else:
             bits = None
-        chain.params["seed"] = [k, self.seed]
+        chain = _with_params(chain, seed=[k, self.seed])
         return Realization(index=k, chain=chain, bits=bits, seed=(k, self.seed))
 
     def truncated_realization(self, k: int, L: int) -> Realization:
@@ -583,10 +583,10 @@ class RunDescription:
         if c.kind == "xxz":
             chain = xxz_chain(L, J=c.params["J"], delta=c.params["delta"], fields=c.fields[:L],
                               couplings=c.couplings[:L - 1])
-            chain.params["W"] = c.params["W"]
+            chain = _with_params(chain, W=c.params["W"])
         else:
             chain = mixed_field_ising_chain(L, J=c.params["J"], g=c.params["g"], h=c.params["h"])
-        chain.params["seed"] = list(full.seed)
+        chain = _with_params(chain, seed=list(full.seed))
         bits = tuple(b[:L] for b in full.bits) if full.bits is not None else None
         return Realization(index=full.index, chain=chain, bits=bits, seed=full.seed)
 
@@ -598,6 +598,13 @@ class RunDescription:
         if self.L == 1:
             return 0
         return int(round(int(s) * (L - 1) / (self.L - 1)))
+
+
+def _with_params(chain: Chain, **params) -> Chain:
+    """A copy of the (frozen) chain whose recorded parameters include ``params``."""
+    import dataclasses
+
+    return dataclasses.replace(chain, params={**chain.params, **params})
 
 
 def _canonical(d) -> str:

@@ -40,7 +40,6 @@ __all__ = ["exact_otoc", "eigenstate_otoc", "free_fermion_otoc", "typicality_oto
 #: Largest chain length handled by the dense references (4^L complex numbers per operator).
 MAX_DENSE_L = 12
 
-_PAULI_LETTERS = "IXYZ"
 
 
 # --------------------------------------------------------------------------------------------- helpers
@@ -376,9 +375,10 @@ def free_fermion_otoc(chain: Chain, site=0, times: Sequence[float] = (1.0,), dt:
 
         C_ZZ(r, t) = 4 |G_{ir}|^2 (1 - |G_{ir}|^2),   i = site
 
-    (physics notes, "Check values"; also at r = i). With ``dt`` given, G is instead the product of the
+    (derived from Wick's theorem for the Jordan-Wigner fermions; consistent with Lin & Motrunich, PRB 98, 134305
+    (2018); also at r = i). With ``dt`` given, G is instead the product of the
     single-particle bond exponentials of exactly the engine's Trotter schedule
-    (:func:`mpo_fronts.evolve.step_plan`, :func:`mpo_fronts.evolve.block_layers`, one-site terms shared as in
+    (:func:`mpo_fronts.schedules.step_plan`, :func:`mpo_fronts.schedules.block_layers`, one-site terms shared as in
     ``chain.site_share()``), so the result equals an untruncated :func:`mpo_fronts.evolve_otoc` with the same
     dt, order and chunk: the difference to the engine isolates its truncation error.
 

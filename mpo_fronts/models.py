@@ -21,7 +21,6 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from numbers import Integral, Real
-from typing import Any
 
 import numpy as np
 
@@ -92,17 +91,6 @@ class Chain:
         for b, hb in enumerate(self.bond_hamiltonians()):
             H += np.kron(np.kron(np.eye(2**b), hb), np.eye(2 ** (self.L - b - 2)))
         return H
-
-    def describe(self) -> dict[str, Any]:
-        """A JSON-able description of the chain, with the fields and couplings actually used."""
-        out: dict[str, Any] = {"kind": self.kind, "L": self.L}
-        for k, v in self.params.items():
-            out[k] = v.tolist() if isinstance(v, np.ndarray) else v
-        if self.fields is not None:
-            out["fields"] = self.fields.tolist()
-        if self.couplings is not None:
-            out["couplings"] = self.couplings.tolist()
-        return out
 
 
 # ----------------------------------------------------------------------------------------------- validation

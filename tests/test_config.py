@@ -62,10 +62,12 @@ def test_defaults_are_resolved():
 
 def test_time_grid_matches_numpy():
     desc = parse_description(base(times__values=None, times__start=0.1, times__stop=100.0, times__num=7))
-    np.testing.assert_array_equal(desc.times, np.geomspace(0.1, 100.0, 7))  # reference: numpy.geomspace
+    # log spacing: t_k = 0.1 * 1000^(k/6) = 10^(k/2 - 1), endpoints exact
+    np.testing.assert_allclose(desc.times, 10.0 ** (np.arange(7) / 2 - 1), rtol=1e-13)
+    assert desc.times[0] == 0.1 and desc.times[-1] == 100.0
     lin = parse_description(base(times__values=None, times__start=0.0, times__stop=2.0, times__num=5,
                                  times__spacing="linear"))
-    np.testing.assert_array_equal(lin.times, np.linspace(0.0, 2.0, 5))
+    np.testing.assert_allclose(lin.times, [0.0, 0.5, 1.0, 1.5, 2.0], rtol=0, atol=1e-15)
 
 
 def test_site_center_and_probes():

@@ -75,7 +75,8 @@ def test_schedules_are_consistent():
 
 # ---------------------------------------------------------------------------------------- closed forms
 def test_free_fermions_large_chain_trotterized_closed_form():
-    # Trotterized free-fermion closed form (physics.md [derived]): isolates truncation error at L = 64
+    # Trotterized free-fermion closed form (Jordan-Wigner: the same schedule of single-particle bond exponentials
+    # gives the exact Trotterized C_ZZ = 4|G|^2(1-|G|^2), derived in exact.free_fermion_otoc): isolates truncation error at L = 64
     L, dt, order = 64, 0.05, 2
     chain = mf.xxz_chain(L, delta=0.0, W=1.0, seed=64)
     ts = [0.5, 1.0, 2.0, 4.0]
@@ -86,7 +87,8 @@ def test_free_fermions_large_chain_trotterized_closed_form():
 
 
 def test_clean_xx_chain_bessel_values():
-    # infinite XX chain: |G_0r(t)|^2 = J_r(Jt)^2 (physics.md [derived]); C_ZZ = 4 |G|^2 (1 - |G|^2)
+    # infinite XX chain: |G_0r(t)|^2 = J_r(Jt)^2 (hopping J/2: G_0r = i^r J_r(Jt), a standard Bessel identity);
+    # C_ZZ = 4 |G|^2 (1 - |G|^2) (Lin & Motrunich, PRB 98, 134305 (2018))
     L, i = 40, 20
     chain = mf.xxz_chain(L, delta=0.0)
     ts = [0.5, 1.0, 4.0, 5.0]
@@ -96,7 +98,7 @@ def test_clean_xx_chain_bessel_values():
         for r in range(0, 11):
             g2 = scipy.special.jv(r, t) ** 2
             assert abs(C[k, i + r] - 4 * g2 * (1 - g2)) < 1e-8
-    # check values listed in physics.md ([derived] there)
+    # check values: 4 J_r(t)^2 (1 - J_r(t)^2) evaluated with scipy.special.jv
     listed = {(1, 0.5): 0.2209960772, (3, 1.0): 0.0015303134, (5, 4.0): 0.0685699637, (10, 5.0): 8.6177599e-06}
     for (r, t), val in listed.items():
         assert abs(C[ts.index(t), i + r] - val) < 1e-8 * max(1.0, val * 1e3)
@@ -182,7 +184,7 @@ def test_checkpoint_restore_reproduces_uninterrupted_run(graded, truncation):
 
 
 def test_product_state_average_over_basis_equals_infinite_temperature():
-    # averaging C_s over all 2^L basis states gives the infinite-temperature OTOC (physics.md [trade])
+    # averaging C_s over all 2^L basis states gives the infinite-temperature OTOC (sum_s <s|A|s> = Tr A; common practice)
     L = 4
     chain = mf.xxz_chain(L, W=1.0, seed=3)
     ts = [0.7, 1.4]

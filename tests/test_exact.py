@@ -1,5 +1,6 @@
 """Tests of mpo_fronts.exact against references built here from scratch (full 2^L matrices, scipy.linalg.expm,
-scipy.special.jv) and against the closed forms of the physics notes."""
+scipy.special.jv) and against free-fermion closed forms (Jordan-Wigner; consistent with Lin & Motrunich,
+PRB 98, 134305 (2018))."""
 
 from functools import reduce
 
@@ -124,7 +125,7 @@ def test_exact_otoc_complex_hamiltonian():
 
 
 def test_product_state_average_is_infinite_temperature():
-    """Averaging C_s over all 2^L basis states gives the trace (physics notes, conventions)."""
+    """Averaging C_s over all 2^L basis states gives the trace: sum_s <s|A|s> = Tr A (common practice)."""
     L = 5
     chain = mf.mixed_field_ising_chain(L)
     times = [0.3, 1.1]
@@ -195,7 +196,7 @@ def test_clean_xx_chain_bessel():
     for k, t in enumerate(times):
         g = jv(np.arange(-i, L - i), t) ** 2
         np.testing.assert_allclose(C[k], 4 * g * (1 - g), atol=1e-12)
-    # check values of the physics notes ([derived] there)
+    # check values C_ZZ = 4 J_r(t)^2 (1 - J_r(t)^2) of the infinite XX chain, from scipy.special.jv (Bessel)
     np.testing.assert_allclose(C[0, i + 1], 0.2209960772, rtol=1e-9)
     np.testing.assert_allclose(C[1, i + 3], 0.0015303134, rtol=1e-7)
     np.testing.assert_allclose(C[2, i + 5], 0.0685699637, rtol=1e-9)

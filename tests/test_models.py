@@ -15,7 +15,7 @@ def site_op(op, i, L):
 
 
 def test_xxz_dense_matches_definition():
-    # H = sum J (SxSx + SySy + delta SzSz) + sum h_i Sz_i, built term by term (physics.md conventions)
+    # H = sum J (SxSx + SySy + delta SzSz) + sum h_i Sz_i, built term by term (README, Conventions: S = sigma/2, box disorder)
     L, J, delta = 5, 0.7, 1.3
     chain = mf.xxz_chain(L, J=J, delta=delta, W=2.0, seed=11)
     H = sum(J * (site_op(SPIN[0], i, L) @ site_op(SPIN[0], i + 1, L) + site_op(SPIN[1], i, L) @ site_op(SPIN[1], i + 1, L)
