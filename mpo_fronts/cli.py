@@ -228,7 +228,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="probe V (default: Z if stored, else the first of operators.v)")
 
     p = sub.add_parser("demo", help="run the two demo ensembles, summarize them and draw their figures",
-                       description="Run data/demo_thermal.toml (W = 0.5) and data/demo_localized.toml (W = 5), "
+                       description="Run the built-in demo_thermal.toml (W = 0.5) and demo_localized.toml (W = 5), "
                        "XXZ chains of L = 32 with invented demo parameters, then write summaries and figures. "
                        "Rerunning reuses what is done.")
     p.add_argument("--out", "-o", default="fronts_demo", metavar="DIR",
@@ -238,8 +238,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--progress", choices=("auto", "bar", "log", "none"), default="auto",
                    help="progress display (default: auto)")
     p.add_argument("--data", default=None, metavar="FOLDER",
-                   help="folder holding demo_thermal.toml and demo_localized.toml (default: the data/ folder "
-                        "of the source tree)")
+                   help="folder holding demo_thermal.toml and demo_localized.toml (default: the ones installed "
+                        "with the package, mpo_fronts/demo)")
     return parser
 
 
@@ -455,15 +455,19 @@ def _cmd_plot(args) -> int:
     return 0
 
 
+def demo_folder() -> Path:
+    """Where the demo descriptions are installed (package data, mpo_fronts/demo)."""
+    from importlib.resources import files
+
+    return Path(str(files("mpo_fronts") / "demo"))
+
+
 def _demo_data(folder) -> Path:
-    if folder is not None:
-        p = Path(folder)
-    else:
-        p = Path(__file__).resolve().parent.parent / "data"
+    p = Path(folder) if folder is not None else demo_folder()
     missing = [n for n in _DEMOS if not (p / f"demo_{n}.toml").is_file()]
     if missing:
-        raise UserError(f"cannot find {', '.join(f'demo_{n}.toml' for n in missing)} in {p}; run 'fronts demo' "
-                        "from a source checkout of mpo_fronts or pass --data FOLDER")
+        raise UserError(f"cannot find {', '.join(f'demo_{n}.toml' for n in missing)} in {p}; reinstall "
+                        "mpo_fronts (they ship with the package) or pass --data FOLDER")
     return p
 
 

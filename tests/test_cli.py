@@ -303,7 +303,7 @@ def test_demo_command_with_small_descriptions(tmp_path, capsys):
 
 
 def test_real_demo_descriptions_are_valid():
-    root = Path(__file__).resolve().parent.parent / "data"
+    root = Path(__file__).resolve().parent.parent / "mpo_fronts" / "demo"
     for name in ("thermal", "localized"):
         d = read_description(root / f"demo_{name}.toml")
         assert d.L == 32 and d.realizations == 12
@@ -409,3 +409,24 @@ def test_demo_without_matplotlib_fails_before_any_work(tmp_path, monkeypatch, ca
     assert main(["demo", "--out", str(out), "--progress", "none"]) == 2
     assert "mpo-fronts[plot]" in capsys.readouterr().err
     assert not out.exists()
+
+
+def test_demo_descriptions_ship_with_a_non_editable_install(tmp_path):
+    # Build the package as 'pip install .' would copy it (setuptools build_py with the project's pyproject, on a
+    # copy of the sources, no network) and check that the demo descriptions are inside it, where 'fronts demo'
+    # looks for them from any directory.
+    import shutil
+
+    root = Path(__file__).resolve().parents[1]
+    src = tmp_path / "src"
+    shutil.copytree(root / "mpo_fronts", src / "mpo_fronts", ignore=shutil.ignore_patterns("__pycache__"))
+    shutil.copy(root / "pyproject.toml", src / "pyproject.toml")
+    shutil.copy(root / "README.md", src / "README.md")
+    res = subprocess.run([sys.executable, "-c", "from setuptools import setup; setup()", "-q", "build_py", "-d",
+                          str(tmp_path / "built")], capture_output=True, text=True, timeout=300, cwd=src)
+    assert res.returncode == 0, res.stderr
+    for name in ("demo_thermal.toml", "demo_localized.toml"):
+        assert (tmp_path / "built" / "mpo_fronts" / "demo" / name).is_file(), name
+    from mpo_fronts.cli import _demo_data
+
+    assert (_demo_data(None) / "demo_thermal.toml").is_file()

@@ -122,6 +122,7 @@ def test_evolve_otoc_limits_blas_threads_during_the_evolution():
         before = max(p["num_threads"] for p in threadpool_info())
         res = mf.evolve_otoc(mf.xxz_chain(6, W=1.0, seed=1), times=[0.2, 0.4], chi=8, progress=progress)
         after = max(p["num_threads"] for p in threadpool_info())
+    assert before == 2  # the outer limit is visible, so seeing one thread below is the evolution's doing
     assert seen and set(seen) == {1} and after == before
     assert res.meta["blas_threads"] == 1 and res.meta["truncation"] == "svd"
     with pytest.raises(InputError, match="threads"):
