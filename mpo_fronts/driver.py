@@ -20,20 +20,21 @@ largest bond dimension), :func:`entanglement` (operator entanglement entropy per
 from __future__ import annotations
 
 import time
+import warnings
 from dataclasses import dataclass, field
 from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 
 from .conventions import PROBES
-from .errors import InputError
+from .errors import LARGE_DISCARDED_WEIGHT, InputError, TruncationWarning
 from .evolve import OperatorTEBD, bond_entropies
 from .readout import OtocResult, check_bits, product_state_otoc, read_operator
 from .schedules import check_times, step_plan
 from .settings import EvolutionSettings
 from .truncation import SVD_FLOOR
 
-__all__ = ["evolve", "evolve_otoc", "Evolution", "operator_profiles", "truncation_record", "entanglement", "ProductStates",
+__all__ = ["evolve", "evolve_otoc", "truncation_warnings", "Evolution", "operator_profiles", "truncation_record", "entanglement", "ProductStates",
            "DEFAULT_MEASUREMENTS", "Observer", "OnBlock"]
 
 Measurement = Callable[[OperatorTEBD], Mapping[str, Any]]
@@ -253,6 +254,23 @@ def product_states(bits: Sequence[str] | None, L: int, probes: Sequence[str] = P
     return ProductStates(tuple(check_bits(b, L) for b in bits), tuple(probes))
 
 
+def truncation_warnings(discarded_weight, times, threshold: float = LARGE_DISCARDED_WEIGHT) -> list[str]:
+    """Warnings for a run whose cumulative discarded weight passes ``threshold`` (default 10 %).
+
+    C is read as weights divided by the weight that remains, so it stays in [0, 2] however much was lost; once a
+    large part of W(t) is gone, the saturated region behind the front is not meaningful, only the front and
+    what lies ahead of it (compare bond dimensions before trusting even those).
+    """
+    dw = np.asarray(discarded_weight, dtype=float).reshape(-1)
+    over = np.flatnonzero(dw > threshold)
+    if over.size == 0:
+        return []
+    t = np.asarray(times, dtype=float).reshape(-1)
+    return [f"discarded weight {dw[-1]:.3g} at t = {t[-1]:g} (above {threshold:g} from t = {t[over[0]]:g} on): "
+            "C is normalised by the weight that remains, so values behind the front are not meaningful there; "
+            "raise chi or use only the front and ahead of it, after a bond-dimension comparison"]
+
+
 # ------------------------------------------------------------------------------------------- Python API
 def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: float = 0.05, order: int = 2,
                 cutoff: float = 0.0, state: str | None = None, chunk: int | None = None,
@@ -308,7 +326,10 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
     a = evo.arrays
     sotoc = {v: a[f"state_otoc_{v}"][:, 0] for v in PROBES} if state is not None else {}
     meta = {**evo.engine, "w": w.upper() if isinstance(w, str) else w,
-            "site": site if not isinstance(site, str) else chain.L // 2, "state": state}
+            "site": site if not isinstance(site, str) else chain.L // 2, "state": state,
+            "warnings": truncation_warnings(a["discarded_weight"], evo.times)}
+    for text in meta["warnings"]:
+        warnings.warn(text, TruncationWarning, stacklevel=2)
     return OtocResult(times=evo.times, weights=a["weights"], right_weight=a["right_weight"],
                       discarded_weight=a["discarded_weight"], max_bond=a["max_bond"], state_otoc=sotoc, meta=meta,
                       bond_discarded=a["bond_discarded"], bond_entropy=a["bond_entropy"])

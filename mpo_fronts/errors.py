@@ -53,6 +53,14 @@ class MissingDependencyError(UserError, ImportError):
     """An optional dependency is not installed; the message names the install command."""
 
 
+class TruncationWarning(UserWarning):
+    """Truncation removed so much of W(t) that values behind the front are no longer meaningful."""
+
+
+#: Discarded weight above which every output warns (10 % of the operator's Frobenius weight lost).
+LARGE_DISCARDED_WEIGHT = 0.1
+
+
 def require(module: str, extra: str):
     """Import an optional dependency or raise :class:`MissingDependencyError` naming the install command."""
     import importlib

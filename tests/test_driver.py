@@ -71,3 +71,20 @@ def test_api_and_ensemble_paths_give_identical_arrays_and_metadata(tmp_path):
         assert np.array_equal(ens.otoc(v)[0], res.otoc(v))
     for key in ("splits", "blas_threads", "max_step", "truncation", "chi"):
         assert ens.engine[key] == res.meta[key], key
+
+
+def test_a_run_that_loses_most_of_its_weight_warns_and_one_that_does_not_stays_quiet():
+    import warnings
+
+    import pytest
+
+    from mpo_fronts.errors import TruncationWarning
+
+    chain = mf.mixed_field_ising_chain(16)
+    with pytest.warns(TruncationWarning, match="discarded weight"):
+        lossy = mf.evolve_otoc(chain, "Z", 8, [2.0, 6.0], chi=2, dt=0.1)
+    assert lossy.discarded_weight[-1] > 0.1 and lossy.meta["warnings"]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", TruncationWarning)
+        fine = mf.evolve_otoc(chain, "Z", 8, [0.5, 1.0], chi=64, dt=0.1)
+    assert fine.discarded_weight[-1] < 1e-6 and fine.meta["warnings"] == []
