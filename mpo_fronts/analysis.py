@@ -1,4 +1,4 @@
-"""Analysis of OTOC ensembles: statistics, distributions, light-cone contours, fits with error bars.
+"""Analysis of OTOC arrays: statistics, distributions, crossing times, light-cone fits, front shape.
 
 Everything here works on plain arrays, with the realizations on the first axis:
 
@@ -8,8 +8,9 @@ Everything here works on plain arrays, with the realizations on the first axis:
   with more sites, ties going right), so every distance appears once;
 * trust masks, boolean arrays broadcastable to (R, n_t, L); ``True`` marks a point whose value is believed.
 
-The functions whose names start with ``ensemble_`` and :func:`summarize` take a loaded ensemble (the object
-returned by :func:`mpo_fronts.load`) and only pick the arrays out of it.
+Which points are trusted is decided in :mod:`mpo_fronts.trust`, and the summary of a loaded ensemble is built in
+:mod:`mpo_fronts.report`; this module only computes. :func:`probe_otoc` and :func:`ensemble_distribution` are
+the only functions that take a loaded ensemble (the object returned by :func:`mpo_fronts.load`).
 
 Conventions used throughout
 ---------------------------
@@ -20,8 +21,8 @@ Crossing time
 Status codes
     ``CROSSED`` (0), ``UNREACHED`` (1, never reached within the data, all points trusted), ``EARLY`` (2,
     already at or above theta at the first output time, so t* is only bounded), ``UNTRUSTED`` (3, the
-    crossing, or its absence, rests on at least one untrusted point at or before it). Only ``CROSSED``
-    distances enter fits.
+    crossing, or its absence, rests on at least one untrusted point at or before it, or its error is too
+    large to fit). Only ``CROSSED`` distances enter fits.
 Fits
     Ballistic: t* = d / v_B + t0 (v_B in sites per unit time 1/J). Logarithmic: ln t* = d / xi + c (xi in
     sites). Both are ordinary least-squares lines through the crossing times of one ensemble curve (the mean
@@ -29,12 +30,9 @@ Fits
     realizations (seeded, reproducible): realizations are redrawn with replacement, the curve, its crossing
     times and the fit are recomputed. With a single realization the interval falls back to the
     least-squares standard error of the slope (Student t), which measures how well the law fits, not noise.
-Trust
-    :func:`trust_mask` uses the bond-dimension convergence mask when the ensemble has one (see
-    :func:`bond_convergence`); otherwise a point is trusted when the cumulative discarded weight of its
-    realization at that time is at most ``max_discarded`` (default 1e-3). The discarded weight is a
-    property of the whole operator, so this fallback is conservative ahead of the front and gives no
-    guarantee behind it; the convergence mask is the better criterion.
+    Systematic errors of the crossing times (truncation, Trotter; see :mod:`mpo_fronts.trust`) enter through
+    ``tstar_sys``: each bootstrap draw (or, with one realization, each of ``n_boot`` draws) shifts every
+    t*(d) by an independent uniform draw within its systematic interval, so the fitted intervals carry them.
 Bimodality
     Sarle's bimodality coefficient b = (g^2 + 1) / (k + 3 (n - 1)^2 / ((n - 2)(n - 3))) with the
     bias-corrected sample skewness g and excess kurtosis k (SAS Institute, SAS/STAT User's Guide, PROC
@@ -44,26 +42,26 @@ Bimodality
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import warnings
+from dataclasses import dataclass, field, fields
 from numbers import Integral, Real
-from typing import Any, Mapping, Sequence
+from typing import Any, Sequence
 
 import numpy as np
 
 from .errors import InputError
 
 __all__ = [
-    "CROSSED", "UNREACHED", "EARLY", "UNTRUSTED", "STATUS_NAMES", "DEFAULT_MAX_DISCARDED", "TYPICAL_FLOOR",
-    "Crossings", "one_side", "typical_value", "ensemble_curve", "ensemble_statistics", "sarle_bimodality",
-    "distribution", "crossing_times", "fit_line", "light_cone", "front_shape", "bond_convergence",
-    "trust_from_discarded", "trust_mask", "ensemble_light_cone", "ensemble_front", "ensemble_distribution",
-    "front_sites", "summarize", "format_summary", "LAWS",
+    "CROSSED", "UNREACHED", "EARLY", "UNTRUSTED", "STATUS_NAMES", "TYPICAL_FLOOR", "LAWS", "CURVES",
+    "Record", "Crossings", "LawFit", "LightCone", "WidthFit", "FrontShape",
+    "check_times", "check_otoc", "check_threshold", "check_ci", "check_count", "check_curve", "trusted_array",
+    "one_side", "typical_value", "ensemble_curve", "ensemble_statistics", "sarle_bimodality", "distribution",
+    "crossing_times", "fit_line", "fit_range", "bootstrap_crossings", "light_cone", "front_moments",
+    "front_shape", "front_sites", "probe_otoc", "ensemble_distribution",
 ]
 
 CROSSED, UNREACHED, EARLY, UNTRUSTED = 0, 1, 2, 3
 STATUS_NAMES = {CROSSED: "crossed", UNREACHED: "unreached", EARLY: "early", UNTRUSTED: "untrusted"}
-#: Fallback trust criterion: largest cumulative discarded weight of a trusted point.
-DEFAULT_MAX_DISCARDED = 1e-3
 #: Values of C below this floor count as this floor in ln C (the typical value); C is a weight in [0, 2] and
 #: values near 1e-15 are at the level of floating-point noise.
 TYPICAL_FLOOR = 1e-15
@@ -72,60 +70,106 @@ LAWS = {
     "ballistic": ("t* = d / v_B + t0", "v_B", "sites per unit time (1/J)"),
     "log": ("ln t* = d / xi + c", "xi", "sites"),
 }
-_CURVES = ("mean", "median", "typical")
+#: The ensemble curves whose crossing times can be fitted.
+CURVES = ("mean", "median", "typical")
 _BOOT_BLOCK = 2e7  # numbers held at once while bootstrapping medians
+_NAN = float("nan")
+
+
+# ------------------------------------------------------------------------------------------ typed results
+class Record:
+    """Read access by key to the fields of a result dataclass: ``res["value"]``, ``res.get("value")``.
+
+    The results of :func:`light_cone` and :func:`front_shape` are dataclasses; this keeps the older
+    dictionary spelling working for readers that index them.
+    """
+
+    def keys(self) -> list[str]:
+        return [f.name for f in fields(self)]
+
+    def __getitem__(self, key: str):
+        if isinstance(key, str) and key in self.keys():
+            return getattr(self, key)
+        raise KeyError(key)
+
+    def __contains__(self, key) -> bool:
+        return key in self.keys()
+
+    def get(self, key: str, default=None):
+        return getattr(self, key) if key in self.keys() else default
+
+    def to_dict(self) -> dict[str, Any]:
+        """The fields as a (shallow) dict."""
+        return {k: getattr(self, k) for k in self.keys()}
 
 
 # ------------------------------------------------------------------------------------------ validation
-def _check_times(times) -> np.ndarray:
+def check_times(times) -> np.ndarray:
+    """Output times as a float array: non-empty, finite, >= 0, strictly increasing (units 1/J)."""
     t = np.asarray(times, dtype=float).reshape(-1)
     if t.size < 1 or not np.all(np.isfinite(t)) or np.any(t < 0) or np.any(np.diff(t) <= 0):
-        raise InputError("times must be a non-empty, strictly increasing array of finite times >= 0 (units 1/J)")
+        raise InputError("times must be a non-empty, strictly increasing array of finite times >= 0 (units 1/J)",
+                         arg="times")
     return t
 
 
-def _check_C(C, n_t: int | None = None, name: str = "C") -> np.ndarray:
+def check_otoc(C, n_t: int | None = None, name: str = "C") -> np.ndarray:
+    """An array of shape (R, n_t, L) (realizations, times, sites), with ``n_t`` times when given."""
     a = np.asarray(C, dtype=float)
     if a.ndim != 3:
-        raise InputError(f"{name} must have shape (R, n_t, L) (realizations, times, sites), got shape {a.shape}")
+        raise InputError(f"{name} must have shape (R, n_t, L) (realizations, times, sites), got shape {a.shape}",
+                         arg=name)
     if n_t is not None and a.shape[1] != n_t:
-        raise InputError(f"{name} has {a.shape[1]} times but times has {n_t}; they must match")
+        raise InputError(f"{name} has {a.shape[1]} times but times has {n_t}; they must match", arg=name)
     return a
 
 
-def _check_threshold(threshold) -> float:
+def check_threshold(threshold) -> float:
+    """A threshold theta strictly between 0 and 2 (the scale of C)."""
     if isinstance(threshold, bool) or not isinstance(threshold, Real) or not 0 < float(threshold) < 2:
         raise InputError(f"threshold must be a number strictly between 0 and 2 (C is on the [0, 2] scale), "
-                         f"got {threshold!r}")
+                         f"got {threshold!r}", arg="threshold")
     return float(threshold)
 
 
-def _check_ci(ci) -> float:
+def check_ci(ci) -> float:
+    """A confidence level strictly between 0 and 1."""
     if isinstance(ci, bool) or not isinstance(ci, Real) or not 0 < float(ci) < 1:
-        raise InputError(f"ci (the confidence level) must be strictly between 0 and 1, e.g. 0.95, got {ci!r}")
+        raise InputError(f"ci (the confidence level) must be strictly between 0 and 1, e.g. 0.95, got {ci!r}",
+                         arg="ci")
     return float(ci)
 
 
-def _check_int(name: str, value, low: int = 0) -> int:
+def check_count(name: str, value, low: int = 0) -> int:
+    """An integer argument ``name`` >= ``low``."""
     if isinstance(value, bool) or not isinstance(value, Integral) or value < low:
-        raise InputError(f"{name} must be an integer >= {low}, got {value!r}")
+        raise InputError(f"{name} must be an integer >= {low}, got {value!r}", arg=name)
     return int(value)
 
 
-def _check_curve(curve) -> str:
-    if curve not in _CURVES:
-        raise InputError(f"curve must be one of {', '.join(repr(c) for c in _CURVES)}, got {curve!r}")
+def check_curve(curve) -> str:
+    """One of :data:`CURVES`."""
+    if curve not in CURVES:
+        raise InputError(f"curve must be one of {', '.join(repr(c) for c in CURVES)}, got {curve!r}", arg="curve")
     return curve
 
 
-def _trusted_array(trusted, shape: tuple[int, ...]) -> np.ndarray:
+def trusted_array(trusted, shape: tuple[int, ...]) -> np.ndarray:
+    """A trust mask broadcast to ``shape`` (all True for None)."""
     if trusted is None:
         return np.ones(shape, dtype=bool)
     m = np.asarray(trusted, dtype=bool)
     try:
         return np.broadcast_to(m, shape)
     except ValueError:
-        raise InputError(f"trusted must be a boolean mask broadcastable to {shape}, got shape {m.shape}") from None
+        raise InputError(f"trusted must be a boolean mask broadcastable to {shape}, got shape {m.shape}",
+                         arg="trusted") from None
+
+
+def _check_site(site, L: int) -> int:
+    if isinstance(site, bool) or not isinstance(site, Integral) or not 0 <= site < L:
+        raise InputError(f"site must be an integer in 0..{L - 1}, got {site!r}", arg="site")
+    return int(site)
 
 
 # ------------------------------------------------------------------------------------------ geometry
@@ -150,11 +194,10 @@ def one_side(L: int, site: int, side: str = "auto") -> tuple[np.ndarray, np.ndar
     side : str
         The side used, 'right' or 'left'.
     """
-    L = _check_int("L", L, 1)
-    if isinstance(site, bool) or not isinstance(site, Integral) or not 0 <= site < L:
-        raise InputError(f"site must be an integer in 0..{L - 1}, got {site!r}")
+    L = check_count("L", L, 1)
+    _check_site(site, L)
     if side not in ("auto", "right", "left"):
-        raise InputError(f"side must be 'auto', 'right' or 'left', got {side!r}")
+        raise InputError(f"side must be 'auto', 'right' or 'left', got {side!r}", arg="side")
     if side == "auto":
         side = "right" if L - 1 - site >= site else "left"
     n = L - 1 - site if side == "right" else site
@@ -172,7 +215,7 @@ def typical_value(C, axis: int = 0, floor: float = TYPICAL_FLOOR) -> np.ndarray:
 
 def ensemble_curve(C, curve: str = "mean", axis: int = 0) -> np.ndarray:
     """One summary curve over realizations: 'mean', 'median' or 'typical' (exp <ln C>)."""
-    curve = _check_curve(curve)
+    curve = check_curve(curve)
     a = np.asarray(C, dtype=float)
     if curve == "mean":
         return a.mean(axis=axis)
@@ -199,10 +242,10 @@ def ensemble_statistics(C, quantiles: Sequence[float] = (0.1, 0.25, 0.75, 0.9),
         ``mean``, ``std`` (ddof 1; NaN for R = 1), ``sem``, ``median``, ``typical`` (each (n_t, L)),
         ``quantiles`` {q: (n_t, L)}, ``n_clamped`` (n_t, L) and ``R``.
     """
-    a = _check_C(C)
+    a = check_otoc(C)
     q = np.asarray(quantiles, dtype=float).reshape(-1)
     if np.any((q < 0) | (q > 1)):
-        raise InputError(f"quantiles must lie in [0, 1], got {list(quantiles)}")
+        raise InputError(f"quantiles must lie in [0, 1], got {list(quantiles)}", arg="quantiles")
     R = a.shape[0]
     std = a.std(axis=0, ddof=1) if R > 1 else np.full(a.shape[1:], np.nan)
     qs = np.quantile(a, q, axis=0) if q.size else np.empty((0,) + a.shape[1:])
@@ -265,10 +308,11 @@ def distribution(C_r, times=None, bins: int | Sequence[float] = 40, value_range:
     """
     a = np.asarray(C_r, dtype=float)
     if a.ndim != 2:
-        raise InputError(f"C_r must have shape (R, n_t) (realizations, times at one site), got {a.shape}")
+        raise InputError(f"C_r must have shape (R, n_t) (realizations, times at one site), got {a.shape}",
+                         arg="C_r")
     lo, hi = value_range
     if not hi > lo:
-        raise InputError(f"value_range must be (low, high) with high > low, got {value_range!r}")
+        raise InputError(f"value_range must be (low, high) with high > low, got {value_range!r}", arg="value_range")
     edges = np.histogram_bin_edges(a, bins=bins, range=(lo, hi)) if np.ndim(bins) == 0 else np.asarray(bins, float)
     dens = np.empty((a.shape[1], edges.size - 1))
     for k in range(a.shape[1]):
@@ -280,7 +324,7 @@ def distribution(C_r, times=None, bins: int | Sequence[float] = 40, value_range:
         "q90": np.quantile(a, 0.9, axis=0), "bimodality": sarle_bimodality(a, axis=0),
     }
     if times is not None:
-        out["times"] = _check_times(times)
+        out["times"] = check_times(times)
     return out
 
 
@@ -329,12 +373,13 @@ def crossing_times(times, C, threshold: float = 0.5, trusted=None) -> Crossings:
     -------
     Crossings
     """
-    t = _check_times(times)
-    theta = _check_threshold(threshold)
+    t = check_times(times)
+    theta = check_threshold(threshold)
     a = np.asarray(C, dtype=float)
     if a.ndim < 2 or a.shape[-2] != t.size:
-        raise InputError(f"C must have time on its second-to-last axis with {t.size} entries, got shape {a.shape}")
-    ok = _trusted_array(trusted, a.shape) & np.isfinite(a)
+        raise InputError(f"C must have time on its second-to-last axis with {t.size} entries, got shape {a.shape}",
+                         arg="C")
+    ok = trusted_array(trusted, a.shape) & np.isfinite(a)
     above = np.nan_to_num(a, nan=-np.inf) >= theta
     reached = above.any(axis=-2)
     k = np.argmax(above, axis=-2)
@@ -369,23 +414,22 @@ def fit_line(x, y) -> dict[str, Any]:
     x = np.asarray(x, dtype=float).reshape(-1)
     y = np.asarray(y, dtype=float).reshape(-1)
     n = x.size
-    nan = float("nan")
     if n < 2 or np.ptp(x) == 0:
-        return {"slope": nan, "intercept": nan, "slope_se": nan, "intercept_se": nan,
-                "residuals": np.full(n, np.nan), "r2": nan, "n": n}
+        return {"slope": _NAN, "intercept": _NAN, "slope_se": _NAN, "intercept_se": _NAN,
+                "residuals": np.full(n, np.nan), "r2": _NAN, "n": n}
     xm, ym = x.mean(), y.mean()
     sxx = np.sum((x - xm) ** 2)
     slope = np.sum((x - xm) * (y - ym)) / sxx
     intercept = ym - slope * xm
     res = y - (slope * x + intercept)
     ss_tot = np.sum((y - ym) ** 2)
-    r2 = 1.0 - np.sum(res ** 2) / ss_tot if ss_tot > 0 else nan
+    r2 = 1.0 - np.sum(res ** 2) / ss_tot if ss_tot > 0 else _NAN
     if n > 2:
         s2 = np.sum(res ** 2) / (n - 2)
         slope_se = np.sqrt(s2 / sxx)
         intercept_se = np.sqrt(s2 * (1.0 / n + xm ** 2 / sxx))
     else:
-        slope_se = intercept_se = nan
+        slope_se = intercept_se = _NAN
     return {"slope": float(slope), "intercept": float(intercept), "slope_se": float(slope_se),
             "intercept_se": float(intercept_se), "residuals": res, "r2": float(r2), "n": n}
 
@@ -409,7 +453,7 @@ def _batch_lines(x: np.ndarray, y: np.ndarray, w: np.ndarray) -> tuple[np.ndarra
 def _reciprocal_interval(lo: float, hi: float) -> tuple[float, float]:
     """Interval of 1/a given an interval [lo, hi] of a slope a (a <= 0 means an unbounded parameter)."""
     if not (np.isfinite(lo) and np.isfinite(hi)) or hi <= 0:
-        return float("nan"), float("nan")
+        return _NAN, _NAN
     if lo <= 0:
         return 1.0 / hi, float("inf")
     return 1.0 / hi, 1.0 / lo
@@ -438,10 +482,320 @@ def _boot_curves(C: np.ndarray, ok: np.ndarray, counts: np.ndarray, curve: str):
     return cb, okb
 
 
+def bootstrap_crossings(times, C, theta: float, *, trusted=None, curve: str = "mean", n_boot: int = 500,
+                        seed: int = 0) -> np.ndarray:
+    """Crossing times of the ensemble curve of ``n_boot`` resamples of the realizations (with replacement).
+
+    Parameters
+    ----------
+    times : array_like (n_t,)
+    C : array_like (R, n_t, n_d)
+        Realizations of the curves (R >= 2).
+    theta : float
+    trusted : bool array broadcastable to C, optional
+    curve : {'mean', 'median', 'typical'}
+    n_boot, seed
+        Number of resamples and the seed of numpy's default_rng (equal inputs give equal draws).
+
+    Returns
+    -------
+    ndarray (n_boot, n_d)
+        t* of each resampled curve (NaN where it has no trusted crossing).
+    """
+    t = check_times(times)
+    a = check_otoc(C, t.size)
+    ok = trusted_array(trusted, a.shape) & np.isfinite(a)
+    R = a.shape[0]
+    cnt = _boot_counts(np.random.default_rng(seed), n_boot, R)
+    per = max(1, int(_BOOT_BLOCK // max(1, (R if curve == "median" else 1) * a.shape[1] * a.shape[2])))
+    tb = np.empty((n_boot, a.shape[2]))
+    for s in range(0, n_boot, per):
+        cb, okb = _boot_curves(a, ok, cnt[s:s + per], curve)
+        tb[s:s + per] = crossing_times(t, cb, theta, okb).tstar
+    return tb
+
+
+def _column_std(tb: np.ndarray | None, n: int) -> np.ndarray:
+    """Standard deviation (ddof 1) of the finite entries of each column; NaN for fewer than 2."""
+    if tb is None:
+        return np.full(n, np.nan)
+    fin = np.isfinite(tb)
+    nf = fin.sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mb = np.where(fin, tb, 0.0).sum(axis=0) / nf
+        var = np.where(fin, (tb - mb) ** 2, 0.0).sum(axis=0) / (nf - 1)
+    return np.where(nf >= 2, np.sqrt(var), np.nan)
+
+
+def fit_range(d: np.ndarray, cross: Crossings, r_range: tuple[int, int] | None, d_min: int) -> tuple[int, int]:
+    """Inclusive fit range (d_low, d_high): ``r_range`` checked, or d_min .. the farthest crossed distance."""
+    if r_range is None:
+        hit = np.flatnonzero((cross.status == CROSSED) & (d >= d_min))
+        return (d_min, int(d[hit].max())) if hit.size else (d_min, d_min - 1)
+    try:
+        lo, hi = (int(r_range[0]), int(r_range[1]))
+    except (TypeError, ValueError, IndexError):
+        raise InputError(f"r_range must be a pair of distances (d_low, d_high), got {r_range!r}",
+                         arg="r_range") from None
+    if lo < 0 or hi < lo:
+        raise InputError(f"r_range must satisfy 0 <= d_low <= d_high, got {r_range!r}", arg="r_range")
+    return lo, hi
+
+
+def _exclusion_counts(d: np.ndarray, status: np.ndarray, lo: int, hi: int) -> dict[str, int]:
+    """Distances left out of a fit: untrusted and unreached ones from d_low outwards, early ones in the range."""
+    beyond = d >= lo
+    in_range = beyond & (d <= hi)
+    return {"n_excluded_untrusted": int(np.sum(beyond & (status == UNTRUSTED))),
+            "n_unreached": int(np.sum(beyond & (status == UNREACHED))),
+            "n_early": int(np.sum(in_range & (status == EARLY)))}
+
+
+@dataclass(eq=False)
+class LawFit(Record):
+    """One light-cone law fitted to the crossing times of an ensemble curve (see :func:`light_cone`).
+
+    Attributes
+    ----------
+    law, parameter, units : str
+        The formula (``LAWS``), the name of the fitted parameter (v_B or xi) and its units.
+    value, ci_low, ci_high : float
+        v_B (sites per 1/J) or xi (sites) and its interval at level ``ci`` (``ci_method`` says how).
+    slope, intercept : float
+        The least-squares line (t* or ln t* against d); ``intercept_name`` is t0 or c.
+    slope_ci, intercept_ci : list of two floats
+    distances, tstar : ndarray
+        The points fitted (distances d and their t*, units 1/J).
+    residuals : ndarray
+        In t (ballistic) or ln t (log).
+    rms_residual, rms_log_residual, r2 : float
+        ``rms_log_residual`` is in ln t for both laws, so the two compare.
+    n_points : int
+    d_range : list of two ints
+        Inclusive fit range of distances d = |r - i|; ``r_range`` is the same (its older name).
+    n_excluded_untrusted, n_unreached, n_early : int
+        Distances left out: untrusted or unreached from d_low outwards, early within the range.
+    n_boot_valid : int
+        Bootstrap draws with a valid fit (0 for the least-squares interval).
+    band : dict
+        ``d``, ``low``, ``high``, ``fit`` of t on a grid of distances.
+    systematic : bool
+        Whether the interval includes the systematic (truncation, Trotter) errors of t*.
+    """
+
+    law: str
+    parameter: str
+    units: str
+    value: float
+    slope: float
+    intercept: float
+    intercept_name: str
+    distances: np.ndarray
+    tstar: np.ndarray
+    residuals: np.ndarray
+    rms_residual: float
+    rms_log_residual: float
+    r2: float
+    n_points: int
+    d_range: list
+    ci: float
+    n_excluded_untrusted: int
+    n_unreached: int
+    n_early: int
+    ci_low: float = _NAN
+    ci_high: float = _NAN
+    slope_ci: list = field(default_factory=lambda: [_NAN, _NAN])
+    intercept_ci: list = field(default_factory=lambda: [_NAN, _NAN])
+    n_boot_valid: int = 0
+    ci_method: str = ""
+    band: dict = field(default_factory=dict)
+    systematic: bool = False
+
+    @property
+    def r_range(self) -> list:
+        """The fit range of distances (older name of :attr:`d_range`)."""
+        return self.d_range
+
+    def keys(self) -> list[str]:
+        return super().keys() + ["r_range"]
+
+
+@dataclass(eq=False)
+class LightCone(Record):
+    """The light cone t*(d; theta) of one ensemble curve and its two fits (the result of :func:`light_cone`).
+
+    Attributes
+    ----------
+    d, cols : ndarray of int
+        Distances d = |r - i| and their sites r, on ``side`` of W at ``site``.
+    threshold : float
+    curve : str
+        The ensemble curve ('mean', 'median', 'typical').
+    times : ndarray (n_t,)
+    crossings : Crossings
+        Of the curve, over d.
+    realization_crossings : Crossings
+        Of each realization, (R, n_d).
+    tstar_boot_std : ndarray (n_d,)
+        Bootstrap standard deviation of t* over realizations (NaN without a bootstrap).
+    tstar_low, tstar_high : ndarray (n_d,)
+        Interval of each crossed t*: the statistical interval (bootstrap percentiles at level ``ci``) widened
+        by the systematic half-widths ``tstar_sys`` added in quadrature; NaN where there is no crossing.
+    tstar_sys : ndarray (2, n_d)
+        Systematic errors below and above t* that were given (zeros when none).
+    curve_values, curve_trusted : ndarray (n_t, n_d)
+    fits : dict
+        'ballistic' and 'log' -> :class:`LawFit`.
+    R : int
+    probe : str or None
+        Set by :func:`mpo_fronts.trust.ensemble_light_cone`.
+    trust : dict or None
+        The trust criterion used (set by :func:`mpo_fronts.trust.ensemble_light_cone`).
+    """
+
+    d: np.ndarray
+    cols: np.ndarray
+    side: str
+    site: int
+    threshold: float
+    curve: str
+    times: np.ndarray
+    crossings: Crossings
+    realization_crossings: Crossings
+    tstar_boot_std: np.ndarray
+    curve_values: np.ndarray
+    curve_trusted: np.ndarray
+    fits: dict
+    R: int
+    tstar_low: np.ndarray | None = None
+    tstar_high: np.ndarray | None = None
+    tstar_sys: np.ndarray | None = None
+    ci: float = 0.95
+    probe: str | None = None
+    trust: dict | None = None
+
+
+def _no_fit(f: dict) -> dict:
+    """Two points always fit a line; report no fit rather than a fit without a test."""
+    if f["n"] < 3:
+        f.update(slope=_NAN, intercept=_NAN, r2=_NAN, residuals=np.full(f["n"], np.nan))
+    return f
+
+
+def _boot_interval(law: str, d: np.ndarray, tb: np.ndarray, d_band: np.ndarray, alpha: float) -> dict[str, Any]:
+    """Percentile intervals of the parameter, the line and the band from bootstrap crossing times (n_b, n_d)."""
+    yb = tb if law == "ballistic" else np.log(tb)
+    sl, ic = _batch_lines(d.astype(float), np.nan_to_num(yb), np.isfinite(yb))
+    good = np.isfinite(sl)
+    out: dict[str, Any] = {"n_boot_valid": int(good.sum())}
+    if good.sum() < 2:
+        return out
+    s_lo, s_hi = np.percentile(sl[good], [alpha, 100 - alpha])
+    i_lo, i_hi = np.percentile(ic[good], [alpha, 100 - alpha])
+    out["ci_low"], out["ci_high"] = _reciprocal_interval(s_lo, s_hi)
+    out["slope_ci"] = [float(s_lo), float(s_hi)]
+    out["intercept_ci"] = [float(i_lo), float(i_hi)]
+    yb_band = sl[good, None] * d_band[None, :] + ic[good, None]
+    band_lo, band_hi = np.percentile(yb_band, [alpha, 100 - alpha], axis=0)
+    if law == "log":
+        band_lo, band_hi = np.exp(band_lo), np.exp(band_hi)
+    out["band"] = (band_lo, band_hi)
+    return out
+
+
+def _least_squares_interval(law: str, f: dict, x: np.ndarray, d_band: np.ndarray, alpha: float) -> dict[str, Any]:
+    """Student-t intervals from the least-squares standard errors (no bootstrap)."""
+    from scipy import stats
+
+    out: dict[str, Any] = {"n_boot_valid": 0}
+    if not (f["n"] >= 3 and np.isfinite(f["slope_se"])):
+        return out
+    slope, icpt = f["slope"], f["intercept"]
+    q = stats.t.ppf(1 - alpha / 100, f["n"] - 2)
+    s_lo, s_hi = slope - q * f["slope_se"], slope + q * f["slope_se"]
+    i_lo, i_hi = icpt - q * f["intercept_se"], icpt + q * f["intercept_se"]
+    out["ci_low"], out["ci_high"] = _reciprocal_interval(s_lo, s_hi)
+    out["slope_ci"], out["intercept_ci"] = [float(s_lo), float(s_hi)], [float(i_lo), float(i_hi)]
+    y_band = slope * d_band + icpt
+    half = q * np.sqrt(f["slope_se"] ** 2 * (d_band - x.mean()) ** 2 + (f["intercept_se"] ** 2
+                       - f["slope_se"] ** 2 * x.mean() ** 2))
+    half = np.nan_to_num(half)
+    band_lo, band_hi = y_band - half, y_band + half
+    if law == "log":
+        band_lo, band_hi = np.exp(band_lo), np.exp(band_hi)
+    out["band"] = (band_lo, band_hi)
+    return out
+
+
+_LSQ_METHOD = ("least-squares standard error of the slope (Student t); no bootstrap (a single realization or "
+               "n_boot = 0): it measures the misfit of the law")
+
+
+def _fit_law(law: str, d: np.ndarray, use: np.ndarray, tstar: np.ndarray, tb: np.ndarray | None,
+             d_band: np.ndarray, lo: int, hi: int, ci: float, counts: dict[str, int], method: str,
+             systematic: bool) -> LawFit:
+    """Fit one law to the crossing times ``tstar[use]``, with intervals from ``tb`` (draws) or least squares."""
+    formula, pname, units = LAWS[law]
+    x = d[use].astype(float)
+    ts_use = tstar[use]
+    y = ts_use if law == "ballistic" else np.log(ts_use)
+    f = _no_fit(fit_line(x, y))
+    slope, icpt = f["slope"], f["intercept"]
+    value = 1.0 / slope if np.isfinite(slope) and slope > 0 else _NAN
+    pred_t = slope * x + icpt if law == "ballistic" else np.exp(slope * x + icpt)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        log_res = np.log(ts_use) - np.log(np.where(pred_t > 0, pred_t, np.nan))
+    alpha = 100 * (1 - ci) / 2
+    if tb is not None and x.size >= 3:
+        iv = _boot_interval(law, d, tb, d_band, alpha)
+        ci_method = method
+    else:
+        iv = _least_squares_interval(law, f, x, d_band, alpha)
+        ci_method = _LSQ_METHOD
+        systematic = False
+    if x.size < 3:
+        ci_method = "no fit: fewer than 3 distances with a trusted crossing in the fit range"
+    band_lo, band_hi = iv.pop("band", (np.full(d_band.size, np.nan),) * 2)
+    fit = (slope * d_band + icpt) if law == "ballistic" else np.exp(slope * d_band + icpt)
+    return LawFit(
+        law=formula, parameter=pname, units=units, value=value, slope=slope, intercept=icpt,
+        intercept_name="t0" if law == "ballistic" else "c", distances=d[use], tstar=ts_use,
+        residuals=f["residuals"],
+        rms_residual=float(np.sqrt(np.mean(f["residuals"] ** 2))) if f["n"] >= 3 else _NAN,
+        rms_log_residual=float(np.sqrt(np.nanmean(log_res ** 2))) if f["n"] >= 3 else _NAN,
+        r2=f["r2"], n_points=int(f["n"]), d_range=[int(lo), int(hi)], ci=ci, **counts, **iv,
+        ci_method=ci_method, band={"d": d_band, "low": band_lo, "high": band_hi, "fit": fit},
+        systematic=bool(systematic and x.size >= 3))
+
+
+def _check_sys(tstar_sys, n_d: int) -> np.ndarray:
+    """Systematic errors of t* as (2, n_d) (below, above), non-negative; NaN marks an unknown error."""
+    if tstar_sys is None:
+        return np.zeros((2, n_d))
+    s = np.asarray(tstar_sys, dtype=float)
+    if s.shape == (n_d,):
+        s = np.stack([s, s])
+    if s.shape != (2, n_d) or np.any(s < 0):
+        raise InputError(f"tstar_sys must hold non-negative errors of t*, shape ({n_d},) or (2, {n_d}) (below, "
+                         f"above), one per distance on the side used, got shape {s.shape}", arg="tstar_sys")
+    return s
+
+
+def _systematic_draws(tstar: np.ndarray, sys: np.ndarray, n: int, rng: np.random.Generator) -> np.ndarray:
+    """t* shifted by independent uniform draws within [t* - below, t* + above], shape (n, n_d)."""
+    u = rng.uniform(0.0, 1.0, size=(n, tstar.size))
+    return tstar[None, :] - sys[0][None, :] + u * (sys[0] + sys[1])[None, :]
+
+
 def light_cone(times, C, site: int, threshold: float = 0.5, *, trusted=None, curve: str = "mean",
                side: str = "auto", r_range: tuple[int, int] | None = None, d_min: int = 1, n_boot: int = 500,
-               ci: float = 0.95, seed: int = 0, n_band: int = 60) -> dict[str, Any]:
-    """Light cone t*(d; theta) with ballistic and logarithmic fits and bootstrap intervals.
+               ci: float = 0.95, seed: int = 0, n_band: int = 60, tstar_sys=None,
+               crossing_trusted=None) -> LightCone:
+    """Light cone t*(d; theta) with ballistic and logarithmic fits and their intervals.
+
+    The steps: the ensemble curve and its crossings (:func:`crossing_times`), the fit range
+    (:func:`fit_range`), the bootstrap over realizations (:func:`bootstrap_crossings`), the per-distance
+    intervals of t*, then one least-squares line per law with its interval.
 
     Parameters
     ----------
@@ -454,8 +808,8 @@ def light_cone(times, C, site: int, threshold: float = 0.5, *, trusted=None, cur
     threshold : float
         theta on the [0, 2] scale of C.
     trusted : bool array broadcastable to (R, n_t, L), optional
-        Trust mask (see :func:`trust_mask`); a point of an ensemble curve is trusted when it is trusted in
-        every realization that enters it.
+        Trust mask (see :func:`mpo_fronts.trust.trust_mask`); a point of an ensemble curve is trusted when it
+        is trusted in every realization that enters it.
     curve : {'mean', 'median', 'typical'}
         The ensemble curve whose crossing times are fitted.
     r_range : (int, int), optional
@@ -464,161 +818,113 @@ def light_cone(times, C, site: int, threshold: float = 0.5, *, trusted=None, cur
     d_min : int
         Smallest distance in the default range.
     n_boot : int
-        Bootstrap resamples over realizations (0 to skip; always skipped for R = 1).
+        Bootstrap resamples over realizations (0 to skip; skipped for R = 1 unless ``tstar_sys`` is given,
+        whose draws then make the interval).
     ci : float
         Confidence level of the intervals (default 0.95).
     seed : int
         Seed of the bootstrap generator (numpy default_rng): equal inputs give equal intervals.
     n_band : int
         Number of distances on which the fitted bands are evaluated.
+    tstar_sys : array_like (n_d,) or (2, n_d), optional
+        Systematic errors (units 1/J) of the crossing time of the curve below and above it at each distance
+        of the side used (truncation and Trotter error, see :func:`mpo_fronts.trust.crossing_errors`).
+        They widen the per-distance intervals (in quadrature with the statistical half-widths) and enter the
+        fits as uniform shifts drawn within them in every bootstrap draw. NaN entries are left out of the fits.
+    crossing_trusted : bool array (n_d,), optional
+        Distances whose crossing is trusted; the others get status ``UNTRUSTED`` and are not fitted.
 
     Returns
     -------
-    dict
-        ``d``, ``cols``, ``side``, ``threshold``, ``curve``; ``crossings`` (:class:`Crossings` of the curve,
-        over d), ``realization_crossings`` (:class:`Crossings`, (R, n_d)), ``tstar_boot_std`` (n_d,);
-        ``fits`` {'ballistic', 'log'}: each with ``value`` (v_B or xi), ``ci_low``, ``ci_high``,
-        ``slope``, ``intercept`` (t0 or c) with its interval, ``distances``, ``tstar``, ``residuals`` (in t
-        for ballistic, in ln t for log), ``rms_residual``, ``rms_log_residual`` (ln t* - ln t_fit for both
-        laws, so they compare), ``r2``, ``n_points``, ``r_range``, ``band`` (d, low, high of t), counts of
-        excluded distances, ``n_boot_valid`` and ``ci_method``.
+    LightCone
     """
-    t = _check_times(times)
-    a = _check_C(C, t.size)
-    theta = _check_threshold(threshold)
-    curve = _check_curve(curve)
-    ci = _check_ci(ci)
-    n_boot = _check_int("n_boot", n_boot)
-    d_min = _check_int("d_min", d_min)
-    seed = _check_int("seed", seed)
+    t = check_times(times)
+    a = check_otoc(C, t.size)
+    theta = check_threshold(threshold)
+    curve = check_curve(curve)
+    ci = check_ci(ci)
+    n_boot = check_count("n_boot", n_boot)
+    d_min = check_count("d_min", d_min)
+    seed = check_count("seed", seed)
     R, _, L = a.shape
     cols, d, side = one_side(L, site, side)
+    sys = _check_sys(tstar_sys, d.size)
     Cs = a[:, :, cols]
-    ok_s = _trusted_array(trusted, a.shape)[:, :, cols] & np.isfinite(Cs)
+    ok_s = trusted_array(trusted, a.shape)[:, :, cols] & np.isfinite(Cs)
 
+    # 1. the ensemble curve, its crossings and those of every realization
     centre = ensemble_curve(Cs, curve)
     ok_c = ok_s.all(axis=0)
     cross = crossing_times(t, centre, theta, ok_c)
+    if crossing_trusted is not None:
+        ct = np.asarray(crossing_trusted, dtype=bool).reshape(-1)
+        if ct.size != d.size:
+            raise InputError(f"crossing_trusted must have one entry per distance on the side used ({d.size}), "
+                             f"got {ct.size}", arg="crossing_trusted")
+        bad = ~ct & (cross.status == CROSSED)
+        cross.status = np.where(bad, UNTRUSTED, cross.status).astype(np.int8)
+        cross.tstar = np.where(bad, np.nan, cross.tstar)
+    if tstar_sys is not None:  # an unknown systematic error makes the crossing unusable
+        unknown = ~np.isfinite(sys).all(axis=0) & (cross.status == CROSSED)
+        cross.status = np.where(unknown, UNTRUSTED, cross.status).astype(np.int8)
+        cross.tstar = np.where(unknown, np.nan, cross.tstar)
+        sys = np.nan_to_num(sys)
     real = crossing_times(t, Cs, theta, ok_s)
 
-    if r_range is None:
-        hit = np.flatnonzero((cross.status == CROSSED) & (d >= d_min))
-        lo, hi = (d_min, int(d[hit].max())) if hit.size else (d_min, d_min - 1)
-    else:
-        try:
-            lo, hi = (int(r_range[0]), int(r_range[1]))
-        except (TypeError, ValueError, IndexError):
-            raise InputError(f"r_range must be a pair of distances (d_low, d_high), got {r_range!r}") from None
-        if lo < 0 or hi < lo:
-            raise InputError(f"r_range must satisfy 0 <= d_low <= d_high, got {r_range!r}")
-    in_range = (d >= lo) & (d <= hi)
-    use = in_range & (cross.status == CROSSED)
-    beyond = d >= lo  # distances from the start of the range outwards, for the exclusion counts
-    counts = {
-        "n_excluded_untrusted": int(np.sum(beyond & (cross.status == UNTRUSTED))),
-        "n_unreached": int(np.sum(beyond & (cross.status == UNREACHED))),
-        "n_early": int(np.sum(in_range & (cross.status == EARLY))),
-    }
+    # 2. the fit range and what it leaves out
+    lo, hi = fit_range(d, cross, r_range, d_min)
+    use = (d >= lo) & (d <= hi) & (cross.status == CROSSED)
+    counts = _exclusion_counts(d, cross.status, lo, hi)
 
-    # Bootstrap over realizations.
-    boot_ok = R >= 2 and n_boot > 0
-    if boot_ok:
-        rng = np.random.default_rng(seed)
-        cnt = _boot_counts(rng, n_boot, R)
-        per = max(1, int(_BOOT_BLOCK // max(1, (R if curve == "median" else 1) * Cs.shape[1] * Cs.shape[2])))
-        tb = np.empty((n_boot, d.size))
-        for s in range(0, n_boot, per):
-            cb, okb = _boot_curves(Cs, ok_s, cnt[s:s + per], curve)
-            tb[s:s + per] = crossing_times(t, cb, theta, okb).tstar
-        tb = np.where(use[None, :], tb, np.nan)
-        fin = np.isfinite(tb)
-        nf = fin.sum(axis=0)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            mb = np.where(fin, tb, 0.0).sum(axis=0) / nf
-            var = np.where(fin, (tb - mb) ** 2, 0.0).sum(axis=0) / (nf - 1)
-        tstar_boot_std = np.where(nf >= 2, np.sqrt(var), np.nan)
-    else:
-        tb = None
-        tstar_boot_std = np.full(d.size, np.nan)
+    # 3. statistical draws of t*: bootstrap over realizations
+    tb = None
+    method = ""
+    if R >= 2 and n_boot > 0:
+        tb = np.where(use[None, :], bootstrap_crossings(t, Cs, theta, trusted=ok_s, curve=curve, n_boot=n_boot,
+                                                        seed=seed), np.nan)
+        method = f"bootstrap over realizations, percentile interval, n_boot = {n_boot}, seed = {seed}"
+    tstar_boot_std = _column_std(tb, d.size)
 
+    # 4. per-distance intervals of t*: statistical percentiles, widened by the systematic errors
     alpha = 100 * (1 - ci) / 2
-    x = d[use].astype(float)
-    ts_use = cross.tstar[use]
-    d_band = np.linspace(lo, hi, n_band) if hi >= lo else np.empty(0)
-    fits = {}
-    for law, (formula, pname, units) in LAWS.items():
-        y = ts_use if law == "ballistic" else np.log(ts_use)
-        f = fit_line(x, y)
-        if f["n"] < 3:  # two points always fit a line; report no fit rather than a fit without a test
-            f.update(slope=float("nan"), intercept=float("nan"), r2=float("nan"), residuals=np.full(f["n"], np.nan))
-        slope, icpt = f["slope"], f["intercept"]
-        value = 1.0 / slope if np.isfinite(slope) and slope > 0 else float("nan")
-        pred_t = slope * x + icpt if law == "ballistic" else np.exp(slope * x + icpt)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            log_res = np.log(ts_use) - np.log(np.where(pred_t > 0, pred_t, np.nan))
-        entry: dict[str, Any] = {
-            "law": formula, "parameter": pname, "units": units, "value": value,
-            "slope": slope, "intercept": icpt, "intercept_name": "t0" if law == "ballistic" else "c",
-            "distances": d[use], "tstar": ts_use, "residuals": f["residuals"],
-            "rms_residual": float(np.sqrt(np.mean(f["residuals"] ** 2))) if f["n"] >= 3 else float("nan"),
-            "rms_log_residual": float(np.sqrt(np.nanmean(log_res ** 2))) if f["n"] >= 3 else float("nan"),
-            "r2": f["r2"], "n_points": int(f["n"]), "r_range": [int(lo), int(hi)], "ci": ci, **counts,
-        }
-        band_lo = band_hi = np.full(d_band.size, np.nan)
-        if boot_ok and x.size >= 3:
-            yb = tb if law == "ballistic" else np.log(tb)
-            sl, ic = _batch_lines(d.astype(float), np.nan_to_num(yb), np.isfinite(yb))
-            good = np.isfinite(sl)
-            entry["n_boot_valid"] = int(good.sum())
-            entry["ci_method"] = (f"bootstrap over realizations, percentile interval, n_boot = {n_boot}, "
-                                  f"seed = {seed}")
-            if good.sum() >= 2:
-                s_lo, s_hi = np.percentile(sl[good], [alpha, 100 - alpha])
-                i_lo, i_hi = np.percentile(ic[good], [alpha, 100 - alpha])
-                entry["ci_low"], entry["ci_high"] = _reciprocal_interval(s_lo, s_hi)
-                entry["slope_ci"] = [float(s_lo), float(s_hi)]
-                entry["intercept_ci"] = [float(i_lo), float(i_hi)]
-                yb_band = sl[good, None] * d_band[None, :] + ic[good, None]
-                band_lo, band_hi = np.percentile(yb_band, [alpha, 100 - alpha], axis=0)
-                if law == "log":
-                    band_lo, band_hi = np.exp(band_lo), np.exp(band_hi)
-            else:
-                entry["ci_low"] = entry["ci_high"] = float("nan")
-                entry["slope_ci"] = entry["intercept_ci"] = [float("nan")] * 2
-        else:
-            from scipy import stats
+    ts = cross.tstar
+    if tb is not None:
+        with warnings.catch_warnings():  # columns without any crossing: 'All-NaN slice'
+            warnings.simplefilter("ignore", RuntimeWarning)
+            q_lo, q_hi = np.nanpercentile(np.where(np.isfinite(tb), tb, np.nan), [alpha, 100 - alpha], axis=0)
+        s_lo, s_hi = np.maximum(ts - q_lo, 0.0), np.maximum(q_hi - ts, 0.0)
+    else:
+        s_lo = s_hi = np.zeros(d.size)
+    crossed = cross.status == CROSSED
+    with np.errstate(invalid="ignore"):
+        t_low = np.where(crossed, ts - np.sqrt(np.nan_to_num(s_lo) ** 2 + sys[0] ** 2), np.nan)
+        t_high = np.where(crossed, ts + np.sqrt(np.nan_to_num(s_hi) ** 2 + sys[1] ** 2), np.nan)
 
-            entry["n_boot_valid"] = 0
-            entry["ci_method"] = ("least-squares standard error of the slope (Student t); no bootstrap "
-                                  "(a single realization or n_boot = 0): it measures the misfit of the law")
-            if f["n"] >= 3 and np.isfinite(f["slope_se"]):
-                q = stats.t.ppf(1 - alpha / 100, f["n"] - 2)
-                s_lo, s_hi = slope - q * f["slope_se"], slope + q * f["slope_se"]
-                i_lo, i_hi = icpt - q * f["intercept_se"], icpt + q * f["intercept_se"]
-                entry["ci_low"], entry["ci_high"] = _reciprocal_interval(s_lo, s_hi)
-                entry["slope_ci"], entry["intercept_ci"] = [float(s_lo), float(s_hi)], [float(i_lo), float(i_hi)]
-                y_band = slope * d_band + icpt
-                half = q * np.sqrt(f["slope_se"] ** 2 * (d_band - x.mean()) ** 2 + (f["intercept_se"] ** 2
-                                   - f["slope_se"] ** 2 * x.mean() ** 2))
-                half = np.nan_to_num(half)
-                band_lo, band_hi = y_band - half, y_band + half
-                if law == "log":
-                    band_lo, band_hi = np.exp(band_lo), np.exp(band_hi)
-            else:
-                entry["ci_low"] = entry["ci_high"] = float("nan")
-                entry["slope_ci"] = entry["intercept_ci"] = [float("nan")] * 2
-        if x.size < 3:
-            entry["ci_method"] = "no fit: fewer than 3 distances with a trusted crossing in the fit range"
-        entry["band"] = {"d": d_band, "low": band_lo, "high": band_hi,
-                         "fit": (slope * d_band + icpt) if law == "ballistic" else np.exp(slope * d_band + icpt)}
-        fits[law] = entry
-    return {"d": d, "cols": cols, "side": side, "site": int(site), "threshold": theta, "curve": curve,
-            "times": t, "crossings": cross, "realization_crossings": real, "tstar_boot_std": tstar_boot_std,
-            "curve_values": centre, "curve_trusted": ok_c, "fits": fits, "R": R}
+    # 5. systematic errors enter the fits as uniform shifts in every draw
+    has_sys = tstar_sys is not None and bool(np.any(sys[:, use] > 0))
+    if has_sys:
+        rng = np.random.default_rng([seed, 1])
+        if tb is None:
+            n_draw = n_boot if n_boot > 0 else 500
+            tb = np.where(use[None, :], np.broadcast_to(ts, (n_draw, d.size)), np.nan)
+            method = (f"{n_draw} draws of every t* within its systematic interval (truncation, Trotter), "
+                      f"percentile interval, seed = {seed}; a single realization: no statistical part")
+        else:
+            method += "; every t* also shifted within its systematic interval (truncation, Trotter) in each draw"
+        tb = tb - ts[None, :] + _systematic_draws(ts, sys, tb.shape[0], rng)
+
+    d_band = np.linspace(lo, hi, n_band) if hi >= lo else np.empty(0)
+    fits = {law: _fit_law(law, d, use, cross.tstar, tb, d_band, lo, hi, ci, counts, method, has_sys)
+            for law in LAWS}
+    return LightCone(d=d, cols=cols, side=side, site=int(site), threshold=theta, curve=curve, times=t,
+                     crossings=cross, realization_crossings=real, tstar_boot_std=tstar_boot_std,
+                     curve_values=centre, curve_trusted=ok_c, fits=fits, R=R, tstar_low=t_low, tstar_high=t_high,
+                     tstar_sys=sys, ci=ci)
 
 
 # ------------------------------------------------------------------------------------------ front shape
-def _moments(rho: np.ndarray, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def front_moments(rho: np.ndarray, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Mean and standard deviation of x under the (unnormalized) profiles ``rho`` along the last axis."""
     tot = rho.sum(axis=-1)
     with np.errstate(invalid="ignore", divide="ignore"):
         pos = (rho * x).sum(axis=-1) / tot
@@ -626,9 +932,133 @@ def _moments(rho: np.ndarray, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return pos, np.sqrt(np.maximum(var, 0.0))
 
 
+@dataclass(eq=False)
+class WidthFit(Record):
+    """The width-growth exponent beta of w ~ a t^beta (see :func:`front_shape`).
+
+    Attributes
+    ----------
+    value, ci_low, ci_high : float
+        beta and its interval at level ``ci`` (``ci_method`` says how).
+    prefactor : float
+        a (sites).
+    t_range : list of two floats
+        Times fitted (units 1/J); ``times`` lists them.
+    n_points, n_excluded_times : int
+        Times fitted, and times of the window left out as untrusted.
+    residuals : ndarray
+        In ln w.
+    r2 : float
+    law : str
+    """
+
+    value: float
+    prefactor: float
+    t_range: list
+    n_points: int
+    residuals: np.ndarray
+    r2: float
+    times: np.ndarray
+    law: str
+    ci: float
+    n_excluded_times: int
+    ci_low: float = _NAN
+    ci_high: float = _NAN
+    ci_method: str = ""
+
+
+@dataclass(eq=False)
+class FrontShape(Record):
+    """Front position and width of the right-weight profile over time (the result of :func:`front_shape`).
+
+    Attributes
+    ----------
+    times : ndarray (n_t,)
+    x : ndarray (L,)
+        r - i (sites to the right of W).
+    site : int
+    profile : ndarray (n_t, L)
+        Ensemble-mean right-weight profile.
+    position, width : ndarray (n_t,)
+        Of the mean profile (sites).
+    position_r, width_r : ndarray (R, n_t)
+        Per realization.
+    edge_weight : ndarray (n_t,)
+        Weight on the last ``edge_sites`` sites.
+    width_exponent : WidthFit
+    R : int
+    """
+
+    times: np.ndarray
+    x: np.ndarray
+    site: int
+    profile: np.ndarray
+    position: np.ndarray
+    width: np.ndarray
+    position_r: np.ndarray
+    width_r: np.ndarray
+    edge_weight: np.ndarray
+    width_exponent: WidthFit
+    R: int
+
+
+def _width_window(t: np.ndarray, wid: np.ndarray, edge: np.ndarray, tt: np.ndarray, t_range, min_width: float,
+                  edge_tol: float) -> tuple[np.ndarray, list, int]:
+    """Times of the width fit (bool (n_t,)), their range and the number left out as untrusted."""
+    if t_range is None:
+        sel = (t > 0) & (wid >= min_width) & (edge < edge_tol)
+        rng_t = [float(t[sel].min()), float(t[sel].max())] if sel.any() else [_NAN] * 2
+    else:
+        try:
+            t_lo, t_hi = float(t_range[0]), float(t_range[1])
+        except (TypeError, ValueError, IndexError):
+            raise InputError(f"t_range must be a pair of times (t_low, t_high), got {t_range!r}",
+                             arg="t_range") from None
+        sel = (t >= t_lo) & (t <= t_hi) & (t > 0) & (wid > 0)
+        rng_t = [t_lo, t_hi]
+    n_excl = int(np.sum(sel & ~tt))
+    sel = sel & tt
+    if t_range is None:
+        rng_t = [float(t[sel].min()), float(t[sel].max())] if sel.any() else [_NAN] * 2
+    return sel, rng_t, n_excl
+
+
+def _fit_width(t: np.ndarray, wid: np.ndarray, a: np.ndarray, x: np.ndarray, sel: np.ndarray, rng_t: list,
+               n_excl: int, n_boot: int, ci: float, seed: int) -> WidthFit:
+    """ln w against ln t on the selected times, with a bootstrap (R >= 2) or least-squares interval."""
+    R = a.shape[0]
+    lt, lw = np.log(t[sel]), np.log(wid[sel])
+    f = _no_fit(fit_line(lt, lw))
+    alpha = 100 * (1 - ci) / 2
+    out = WidthFit(value=f["slope"], prefactor=float(np.exp(f["intercept"])) if np.isfinite(f["intercept"]) else
+                   _NAN, t_range=rng_t, n_points=int(f["n"]), residuals=f["residuals"], r2=f["r2"], times=t[sel],
+                   law="w = a t^beta", ci=ci, n_excluded_times=n_excl)
+    if R >= 2 and n_boot > 0 and f["n"] >= 3:
+        rng = np.random.default_rng(seed)
+        cnt = _boot_counts(rng, n_boot, R)
+        pb = np.einsum("br,rtl->btl", cnt / R, a[:, sel, :])
+        _, wb = front_moments(pb, x)
+        with np.errstate(divide="ignore"):
+            lwb = np.log(wb)
+        sl, _ = _batch_lines(lt, np.nan_to_num(lwb, neginf=0.0), np.isfinite(lwb))
+        good = np.isfinite(sl)
+        out.ci_low, out.ci_high = (np.percentile(sl[good], [alpha, 100 - alpha]).tolist() if good.sum() >= 2
+                                   else [_NAN] * 2)
+        out.ci_method = f"bootstrap over realizations, percentile interval, n_boot = {n_boot}, seed = {seed}"
+    elif f["n"] >= 3 and np.isfinite(f["slope_se"]):
+        from scipy import stats
+
+        q = stats.t.ppf(1 - alpha / 100, f["n"] - 2)
+        out.ci_low, out.ci_high = f["slope"] - q * f["slope_se"], f["slope"] + q * f["slope_se"]
+        out.ci_method = "least-squares standard error of the slope (Student t); no bootstrap"
+    else:
+        out.ci_method = "fewer than 3 usable times"
+    return out
+
+
 def front_shape(times, rho, site: int, *, t_range: tuple[float, float] | None = None, edge_tol: float = 1e-3,
                 edge_sites: int = 2, min_width: float = 0.5, trusted_times=None, n_boot: int = 500,
-                ci: float = 0.95, seed: int = 0) -> dict[str, Any]:
+                ci: float = 0.95, seed: int = 0) -> FrontShape:
     """Front position and width from the right-weight profile, and the width-growth exponent.
 
     The right weight rho(r, t) is the weight of Pauli strings whose rightmost non-identity letter sits at r
@@ -652,224 +1082,32 @@ def front_shape(times, rho, site: int, *, t_range: tuple[float, float] | None = 
 
     Returns
     -------
-    dict
-        ``times``, ``position`` and ``width`` (n_t,) of the mean profile, ``position_r`` and ``width_r``
-        (R, n_t) per realization, ``profile`` (n_t, L) mean profile, ``x`` (r - i), ``edge_weight`` (n_t,),
-        and ``width_exponent`` with ``value``, ``ci_low``, ``ci_high``, ``t_range``, ``n_points``,
-        ``residuals`` (in ln w), ``r2``, ``ci_method``.
+    FrontShape
     """
-    t = _check_times(times)
+    t = check_times(times)
     a = np.asarray(rho, dtype=float)
     if a.ndim == 2:
         a = a[None]
-    a = _check_C(a, t.size, name="rho")
-    ci = _check_ci(ci)
-    n_boot = _check_int("n_boot", n_boot)
+    a = check_otoc(a, t.size, name="rho")
+    ci = check_ci(ci)
+    n_boot = check_count("n_boot", n_boot)
     R, _, L = a.shape
-    if isinstance(site, bool) or not isinstance(site, Integral) or not 0 <= site < L:
-        raise InputError(f"site must be an integer in 0..{L - 1}, got {site!r}")
+    _check_site(site, L)
     x = np.arange(L) - site
     prof = a.mean(axis=0)
-    pos, wid = _moments(prof, x)
-    pos_r, wid_r = _moments(a, x)
+    pos, wid = front_moments(prof, x)
+    pos_r, wid_r = front_moments(a, x)
     tot = prof.sum(axis=-1)
     with np.errstate(invalid="ignore", divide="ignore"):
         edge = prof[:, L - edge_sites:].sum(axis=-1) / tot
     tt = np.ones(t.size, bool) if trusted_times is None else np.asarray(trusted_times, dtype=bool).reshape(-1)
     if tt.size != t.size:
-        raise InputError(f"trusted_times must have one entry per time ({t.size}), got {tt.size}")
-    if t_range is None:
-        sel = (t > 0) & (wid >= min_width) & (edge < edge_tol)
-        rng_t = [float(t[sel].min()), float(t[sel].max())] if sel.any() else [float("nan")] * 2
-    else:
-        try:
-            t_lo, t_hi = float(t_range[0]), float(t_range[1])
-        except (TypeError, ValueError, IndexError):
-            raise InputError(f"t_range must be a pair of times (t_low, t_high), got {t_range!r}") from None
-        sel = (t >= t_lo) & (t <= t_hi) & (t > 0) & (wid > 0)
-        rng_t = [t_lo, t_hi]
-    n_excl = int(np.sum(sel & ~tt))
-    sel = sel & tt
-    if t_range is None:
-        rng_t = [float(t[sel].min()), float(t[sel].max())] if sel.any() else [float("nan")] * 2
-    lt, lw = np.log(t[sel]), np.log(wid[sel])
-    f = fit_line(lt, lw)
-    if f["n"] < 3:  # two points always fit a line; report no fit
-        f.update(slope=float("nan"), intercept=float("nan"), r2=float("nan"), residuals=np.full(f["n"], np.nan))
-    alpha = 100 * (1 - ci) / 2
-    out = {"value": f["slope"], "prefactor": float(np.exp(f["intercept"])) if np.isfinite(f["intercept"]) else
-           float("nan"), "t_range": rng_t, "n_points": int(f["n"]), "residuals": f["residuals"], "r2": f["r2"],
-           "times": t[sel], "law": "w = a t^beta", "ci": ci, "n_excluded_times": n_excl}
-    if R >= 2 and n_boot > 0 and f["n"] >= 3:
-        rng = np.random.default_rng(seed)
-        cnt = _boot_counts(rng, n_boot, R)
-        pb = np.einsum("br,rtl->btl", cnt / R, a[:, sel, :])
-        _, wb = _moments(pb, x)
-        with np.errstate(divide="ignore"):
-            lwb = np.log(wb)
-        sl, _ = _batch_lines(lt, np.nan_to_num(lwb, neginf=0.0), np.isfinite(lwb))
-        good = np.isfinite(sl)
-        out["ci_low"], out["ci_high"] = (np.percentile(sl[good], [alpha, 100 - alpha]).tolist() if good.sum() >= 2
-                                         else [float("nan")] * 2)
-        out["ci_method"] = f"bootstrap over realizations, percentile interval, n_boot = {n_boot}, seed = {seed}"
-    elif f["n"] >= 3 and np.isfinite(f["slope_se"]):
-        from scipy import stats
-
-        q = stats.t.ppf(1 - alpha / 100, f["n"] - 2)
-        out["ci_low"], out["ci_high"] = f["slope"] - q * f["slope_se"], f["slope"] + q * f["slope_se"]
-        out["ci_method"] = "least-squares standard error of the slope (Student t); no bootstrap"
-    else:
-        out["ci_low"] = out["ci_high"] = float("nan")
-        out["ci_method"] = "fewer than 3 usable times"
-    return {"times": t, "x": x, "site": int(site), "profile": prof, "position": pos, "width": wid,
-            "position_r": pos_r, "width_r": wid_r, "edge_weight": edge, "width_exponent": out, "R": R}
-
-
-# ------------------------------------------------------------------------------------------ convergence and trust
-def bond_convergence(otoc_by_chi: Mapping[int, Any], tol: float = 1e-3) -> dict[str, Any]:
-    """Largest change of C between successive bond dimensions, and the trust mask it implies.
-
-    Parameters
-    ----------
-    otoc_by_chi : mapping int -> array_like (R, n_t, L)
-        C(r, t) of the same realizations and times evolved at each bond dimension chi (at least two).
-    tol : float
-        A point (t, r) is trusted when the change between the two largest chi is below ``tol`` in every
-        realization.
-
-    Returns
-    -------
-    dict
-        ``chis`` (sorted list), ``max_dC`` (n_chi - 1, n_t, L): max over realizations of
-        |C_{chi_{k+1}} - C_{chi_k}|, ``trusted`` (n_t, L) bool, ``tol``.
-    """
-    if not isinstance(otoc_by_chi, Mapping) or len(otoc_by_chi) < 2:
-        raise InputError("otoc_by_chi must map at least two bond dimensions chi to arrays (R, n_t, L); "
-                         "run the same realizations at two or more chi")
-    for chi in otoc_by_chi:
-        if isinstance(chi, bool) or not isinstance(chi, Integral) or chi < 1:
-            raise InputError(f"otoc_by_chi keys must be positive integer bond dimensions, got {chi!r}")
-    if isinstance(tol, bool) or not isinstance(tol, Real) or not float(tol) > 0:
-        raise InputError(f"tol must be a positive number, got {tol!r}")
-    chis = sorted(int(c) for c in otoc_by_chi)
-    arrs = [_check_C(otoc_by_chi[c], name=f"otoc_by_chi[{c}]") for c in chis]
-    shape = arrs[0].shape
-    for c, arr in zip(chis, arrs):
-        if arr.shape != shape:
-            raise InputError(f"otoc_by_chi[{c}] has shape {arr.shape}, but otoc_by_chi[{chis[0]}] has {shape}; "
-                             f"every chi must cover the same realizations, times and sites")
-    diffs = np.stack([np.abs(arrs[k + 1] - arrs[k]).max(axis=0) for k in range(len(arrs) - 1)])
-    diffs = np.where(np.isfinite(diffs), diffs, np.inf)
-    return {"chis": chis, "max_dC": diffs, "trusted": diffs[-1] < float(tol), "tol": float(tol)}
-
-
-def trust_from_discarded(discarded_weight, L: int, max_discarded: float = DEFAULT_MAX_DISCARDED) -> np.ndarray:
-    """Fallback trust mask (R, n_t, L): cumulative discarded weight of the realization <= ``max_discarded``."""
-    dw = np.asarray(discarded_weight, dtype=float)
-    if dw.ndim != 2:
-        raise InputError(f"discarded_weight must have shape (R, n_t), got {dw.shape}")
-    if isinstance(max_discarded, bool) or not isinstance(max_discarded, Real) or not float(max_discarded) >= 0:
-        raise InputError(f"max_discarded must be a number >= 0, got {max_discarded!r}")
-    ok = np.nan_to_num(dw, nan=np.inf) <= float(max_discarded)
-    return np.broadcast_to(ok[:, :, None], dw.shape + (int(L),))
-
-
-def trust_mask(ens, use_trust: bool = True, max_discarded: float = DEFAULT_MAX_DISCARDED, probe: str | None = None
-               ) -> tuple[np.ndarray | None, dict[str, Any]]:
-    """Trust mask of a loaded ensemble and a description of the criterion used.
-
-    With convergence data the mask of the convergence study is used for every probe; ``probe`` (the one
-    being analysed) only enters the description, which says when the study was made with another probe.
-
-    Returns
-    -------
-    mask : ndarray of bool broadcastable to (R, n_t, L), or None when ``use_trust`` is False
-    info : dict
-        ``source`` ('convergence', 'discarded_weight' or 'none'), ``criterion`` (words), ``trusted_fraction``
-        (fraction of the (R, n_t, L) points trusted) and ``n_untrusted`` (number of such points).
-    """
-    R, n_t, L = len(ens.realizations), len(ens.times), int(ens.L)
-    if not use_trust:
-        return None, {"source": "none", "criterion": "trust mask not applied (all points used)",
-                      "trusted_fraction": 1.0, "n_untrusted": 0}
-    conv = getattr(ens, "convergence", None)
-    if conv is not None:
-        m = np.asarray(conv["trusted"], dtype=bool)
-        if m.shape != (n_t, L):
-            raise InputError(f"the convergence mask has shape {m.shape} but the ensemble has (n_t, L) = "
-                             f"{(n_t, L)}; rerun 'fronts converge' on this run description")
-        chis = [int(c) for c in np.asarray(conv.get("chis", [])).reshape(-1)]
-        cprobe = conv.get("probe")
-        other = (f" (study made with probe {cprobe}, applied to probe {probe.upper()})"
-                 if cprobe and probe and str(cprobe).upper() != probe.upper() else "")
-        info = {"source": "convergence",
-                "criterion": f"max |dC| between chi = {chis[-2] if len(chis) > 1 else '?'} and "
-                             f"{chis[-1] if chis else '?'} below tol = {float(conv.get('tol', float('nan'))):g}"
-                             + other}
-        mask = m[None]
-    else:
-        mask = trust_from_discarded(ens.discarded_weight, L, max_discarded)
-        info = {"source": "discarded_weight",
-                "criterion": f"cumulative discarded weight <= {float(max_discarded):g} (no convergence data; "
-                             f"conservative ahead of the front, no guarantee behind it)"}
-    full = np.broadcast_to(mask, (R, n_t, L))
-    info["trusted_fraction"] = float(full.mean())
-    info["n_untrusted"] = int((~full).sum())
-    return mask, info
-
-
-# ------------------------------------------------------------------------------------------ ensemble wrappers
-def _probe_otoc(ens, probe: str) -> np.ndarray:
-    if not isinstance(probe, str) or probe.upper() not in ("X", "Y", "Z"):
-        stored = ", ".join(getattr(ens, "probes", ()))
-        raise InputError(f"probe must be one of 'X', 'Y', 'Z' (this run stores {stored}), got {probe!r}")
-    return np.asarray(ens.otoc(probe.upper()), dtype=float)  # the ensemble says if it cannot provide it
-
-
-def ensemble_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, use_trust: bool = True,
-                        max_discarded: float = DEFAULT_MAX_DISCARDED, **opts) -> dict[str, Any]:
-    """:func:`light_cone` of a loaded ensemble, with its trust mask; ``out['trust']`` describes the mask."""
-    mask, info = trust_mask(ens, use_trust, max_discarded, probe if isinstance(probe, str) else None)
-    out = light_cone(ens.times, _probe_otoc(ens, probe), int(ens.site), threshold, trusted=mask, **opts)
-    out["trust"] = info
-    out["probe"] = probe.upper()
-    return out
-
-
-def ensemble_front(ens, *, use_trust: bool = True, max_discarded: float = DEFAULT_MAX_DISCARDED,
-                   **opts) -> dict[str, Any]:
-    """:func:`front_shape` of a loaded ensemble's right-weight profiles, fitted on trusted times only.
-
-    A time is trusted for the front when the trust mask (:func:`trust_mask`) holds in every realization at
-    every site from one width behind the mean front position to the right end of the chain.
-    """
-    rho = np.asarray(ens.right_weight, dtype=float)
-    site = int(ens.site)
-    if use_trust and "trusted_times" not in opts:
-        mask, info = trust_mask(ens, True, max_discarded)
-        R, n_t, L = rho.shape
-        m = np.broadcast_to(mask, (R, n_t, L)).all(axis=0)
-        pos, wid = _moments(rho.mean(axis=0), np.arange(L) - site)
-        start = np.clip(site + np.floor(np.nan_to_num(pos - wid)).astype(int), 0, L - 1)
-        opts["trusted_times"] = np.array([m[k, start[k]:].all() for k in range(n_t)])
-    out = front_shape(ens.times, rho, site, **opts)
-    return out
-
-
-def ensemble_distribution(ens, r: int | None = None, probe: str = "Z", **opts) -> dict[str, Any]:
-    """:func:`distribution` of C at site ``r`` (default: halfway along the longer side of W)."""
-    C = _probe_otoc(ens, probe)
-    L = C.shape[2]
-    if r is None:
-        cols, _, _ = one_side(L, int(ens.site))
-        r = int(cols[len(cols) // 2])
-    if isinstance(r, bool) or not isinstance(r, Integral) or not 0 <= r < L:
-        raise InputError(f"r (the probe site) must be an integer in 0..{L - 1}, got {r!r}")
-    out = distribution(C[:, :, int(r)], ens.times, **opts)
-    out["r"] = int(r)
-    out["d"] = abs(int(r) - int(ens.site))
-    out["probe"] = probe.upper()
-    return out
+        raise InputError(f"trusted_times must have one entry per time ({t.size}), got {tt.size}",
+                         arg="trusted_times")
+    sel, rng_t, n_excl = _width_window(t, wid, edge, tt, t_range, min_width, edge_tol)
+    we = _fit_width(t, wid, a, x, sel, rng_t, n_excl, n_boot, ci, seed)
+    return FrontShape(times=t, x=x, site=int(site), profile=prof, position=pos, width=wid, position_r=pos_r,
+                      width_r=wid_r, edge_weight=edge, width_exponent=we, R=R)
 
 
 def front_sites(curve_values: np.ndarray, threshold: float, ahead: int = 3, behind: int = 3
@@ -891,168 +1129,27 @@ def front_sites(curve_values: np.ndarray, threshold: float, ahead: int = 3, behi
     return {"front": front, "behind": behind_m, "ahead": ahead_m, "d_front": df[:, 0]}
 
 
-# ------------------------------------------------------------------------------------------ summary
-def _jsonable(obj):
-    if isinstance(obj, Mapping):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return [_jsonable(v) for v in obj.tolist()]
-    if isinstance(obj, (bool, np.bool_)):
-        return bool(obj)
-    if isinstance(obj, (Integral, np.integer)):
-        return int(obj)
-    if isinstance(obj, (Real, np.floating)):
-        v = float(obj)
-        return v if np.isfinite(v) else None
-    if obj is None or isinstance(obj, str):
-        return obj
-    return str(obj)
+# ------------------------------------------------------------------------------------------ loaded ensembles
+def probe_otoc(ens, probe: str) -> np.ndarray:
+    """C(r, t) of a loaded ensemble for probe V in {'X', 'Y', 'Z'}, as a float array (R, n_t, L)."""
+    if not isinstance(probe, str) or probe.upper() not in ("X", "Y", "Z"):
+        stored = ", ".join(getattr(ens, "probes", ()))
+        raise InputError(f"probe must be one of 'X', 'Y', 'Z' (this run stores {stored}), got {probe!r}",
+                         arg="probe")
+    return np.asarray(ens.otoc(probe.upper()), dtype=float)  # the ensemble says if it cannot provide it
 
 
-_FIT_KEYS = ("law", "parameter", "units", "value", "ci_low", "ci_high", "ci", "ci_method", "r_range",
-             "n_points", "r2", "rms_residual", "rms_log_residual", "slope", "intercept", "intercept_name",
-             "slope_ci", "intercept_ci", "n_excluded_untrusted", "n_unreached", "n_early", "n_boot_valid",
-             "distances", "tstar", "residuals")
-
-
-def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "mean", side: str = "auto",
-              r_range: tuple[int, int] | None = None, d_min: int = 1, n_boot: int = 500, ci: float = 0.95,
-              seed: int = 0, use_trust: bool = True, max_discarded: float = DEFAULT_MAX_DISCARDED
-              ) -> dict[str, Any]:
-    """The numbers a researcher wants from a finished ensemble, as a JSON-able dict.
-
-    Parameters
-    ----------
-    ens : loaded ensemble (see :func:`mpo_fronts.load`)
-    threshold : float
-        theta on the [0, 2] scale of C (default 0.5).
-    probe : {'X', 'Y', 'Z'}
-        Probe V of C(r, t).
-    curve, side, r_range, d_min, n_boot, ci, seed
-        See :func:`light_cone`.
-    use_trust : bool
-        Use only trusted points (convergence mask, else the discarded-weight criterion); default True.
-    max_discarded : float
-        Discarded-weight criterion when the ensemble has no convergence data.
-
-    Returns
-    -------
-    dict
-        Top-level ``threshold``, ``probe``; ``butterfly_velocity`` and ``log_light_cone``, each with
-        ``value``, ``ci_low``, ``ci_high``, ``r_range`` (inclusive distances d = |r - i|), fit quality
-        (``r2``, ``rms_residual``, ``rms_log_residual``), ``n_points``, exclusion counts and the residuals;
-        ``law_comparison``; ``crossings`` (distances, t* of the curve, status names, per-realization status
-        counts); ``front`` (width exponent); ``distribution`` (largest bimodality at one site); ``trust``
-        (criterion, trusted fraction); ``largest_discarded_weight``, ``largest_bond``, ``engine``,
-        ``description``. Non-finite numbers become None.
-
-    Examples
-    --------
-    >>> import json, mpo_fronts as mf                                   # doctest: +SKIP
-    >>> s = mf.analysis.summarize(mf.load("runs/demo"), threshold=0.5)  # doctest: +SKIP
-    >>> print(json.dumps(s)[:40])                                       # doctest: +SKIP
-    """
-    lc = ensemble_light_cone(ens, threshold, probe, use_trust=use_trust, max_discarded=max_discarded,
-                             curve=curve, side=side, r_range=r_range, d_min=d_min, n_boot=n_boot, ci=ci, seed=seed)
-    fits = {law: {k: lc["fits"][law].get(k) for k in _FIT_KEYS} for law in LAWS}
-    rb, rl = fits["ballistic"]["rms_log_residual"], fits["log"]["rms_log_residual"]
-    smaller = None
-    if np.isfinite(rb) and np.isfinite(rl):
-        smaller = "ballistic" if rb < rl else "log"
-    fr = ensemble_front(ens, use_trust=use_trust, max_discarded=max_discarded, n_boot=n_boot, ci=ci, seed=seed)
-    we = fr["width_exponent"]
-    dist = ensemble_distribution(ens, probe=probe)
-    bim = dist["bimodality"]
-    k_max = int(np.nanargmax(bim)) if np.any(np.isfinite(bim)) else None
-    cross = lc["crossings"]
-    dw = np.asarray(ens.discarded_weight, dtype=float)
-    mb = np.asarray(ens.max_bond)
-    out = {
-        "threshold": lc["threshold"],
-        "probe": lc["probe"],
-        "curve": curve,
-        "ci_level": ci,
-        "site": lc["site"],
-        "side": lc["side"],
-        "L": int(ens.L),
-        "n_realizations": lc["R"],
-        "n_times": int(len(ens.times)),
-        "t_range": [float(ens.times[0]), float(ens.times[-1])],
-        "distance": "d = |r - site| on the side of W named in 'side'; t* in units of 1/J",
-        "butterfly_velocity": fits["ballistic"],
-        "log_light_cone": fits["log"],
-        "law_comparison": {"rms_log_residual_ballistic": rb, "rms_log_residual_log": rl, "smaller": smaller},
-        "crossings": {"distances": lc["d"], "tstar": cross.tstar,
-                      "status": [STATUS_NAMES[int(s)] for s in cross.status],
-                      "tstar_boot_std": lc["tstar_boot_std"],
-                      "realization_counts": lc["realization_crossings"].counts()},
-        "front": {"width_exponent": {k: we[k] for k in ("value", "ci_low", "ci_high", "ci_method", "t_range",
-                                                        "n_points", "r2", "law", "n_excluded_times")},
-                  "final_position": fr["position"][-1], "final_width": fr["width"][-1],
-                  "note": "from the right-weight profile: the right end of W(t)"},
-        "distribution": {"r": dist["r"], "d": dist["d"], "measure": "Sarle's bimodality coefficient "
-                         "(SAS/STAT PROC CLUSTER; Pfister et al. 2013); > 5/9 suggests two modes",
-                         "max_bimodality": bim[k_max] if k_max is not None else None,
-                         "t_at_max": float(ens.times[k_max]) if k_max is not None else None},
-        "trust": lc["trust"],
-        "trusted_fraction": lc["trust"]["trusted_fraction"],
-        "largest_discarded_weight": float(np.nanmax(dw)) if dw.size else None,
-        "largest_bond": int(mb.max()) if mb.size else None,
-        "engine": dict(getattr(ens, "engine", {}) or {}),
-        "description": dict(getattr(ens, "description", {}) or {}),
-    }
-    return _jsonable(out)
-
-
-def _fmt(v, spec: str = ".4g") -> str:
-    return "-" if v is None else format(v, spec) if isinstance(v, (int, float)) else str(v)
-
-
-def format_summary(d: Mapping[str, Any]) -> str:
-    """The summary of :func:`summarize` as a plain-text table."""
-    lvl = d.get("ci_level", 0.95)
-    lines = [
-        f"OTOC light cone: probe V = {d.get('probe')}, W at site {d.get('site')} of L = {d.get('L')}, "
-        f"{d.get('side')} side, {d.get('n_realizations')} realization(s), t in [{_fmt(d['t_range'][0])}, "
-        f"{_fmt(d['t_range'][1])}] (1/J)",
-        f"threshold theta = {_fmt(d.get('threshold'))} on C in [0, 2]; crossing times of the ensemble "
-        f"{d.get('curve')} of C, interpolated in ln t",
-        "",
-        f"{'quantity':<26}{'value':>10}  {f'{int(round(lvl * 100))}% interval':<22}{'range':<15}{'points':>6}"
-        f"{'R^2':>8}{'rms ln':>9}",
-    ]
-    for key, name in (("butterfly_velocity", "v_B (sites per 1/J)"), ("log_light_cone", "xi (sites)")):
-        f = d.get(key) or {}
-        rr = f.get("r_range") or [None, None]
-        interval = f"[{_fmt(f.get('ci_low'))}, {_fmt(f.get('ci_high'))}]"
-        lines.append(f"{name:<26}{_fmt(f.get('value')):>10}  {interval:<22}{f'd {rr[0]}..{rr[1]}':<15}"
-                     f"{_fmt(f.get('n_points')):>6}{_fmt(f.get('r2'), '.3f'):>8}"
-                     f"{_fmt(f.get('rms_log_residual'), '.3f'):>9}")
-    we = (d.get("front") or {}).get("width_exponent") or {}
-    tr = we.get("t_range") or [None, None]
-    interval = f"[{_fmt(we.get('ci_low'))}, {_fmt(we.get('ci_high'))}]"
-    lines.append(f"{'width exponent beta':<26}{_fmt(we.get('value')):>10}  {interval:<22}"
-                 f"{'t ' + _fmt(tr[0], '.3g') + '..' + _fmt(tr[1], '.3g'):<15}{_fmt(we.get('n_points')):>6}"
-                 f"{_fmt(we.get('r2'), '.3f'):>8}{'':>9}")
-    bv = d.get("butterfly_velocity") or {}
-    lc = d.get("law_comparison") or {}
-    lines += [
-        "",
-        f"fits: {bv.get('law')} and {(d.get('log_light_cone') or {}).get('law')}; smaller rms ln-residual: "
-        f"{lc.get('smaller')}",
-        f"distances beyond d_low: {bv.get('n_unreached')} unreached, {bv.get('n_excluded_untrusted')} excluded "
-        f"as untrusted; intervals: {bv.get('ci_method')}",
-        f"trust: {(d.get('trust') or {}).get('criterion')}; trusted fraction {_fmt(d.get('trusted_fraction'), '.3f')}",
-        f"largest discarded weight {_fmt(d.get('largest_discarded_weight'), '.3g')}, largest bond "
-        f"{_fmt(d.get('largest_bond'))}",
-    ]
-    dist = d.get("distribution") or {}
-    lines.append(f"bimodality at r = {dist.get('r')} (d = {dist.get('d')}): max "
-                 f"{_fmt(dist.get('max_bimodality'), '.3f')} at t = {_fmt(dist.get('t_at_max'), '.3g')} "
-                 "(Sarle's coefficient, > 5/9 suggests two modes)")
-    eng = d.get("engine") or {}
-    if eng:
-        lines.append("engine: " + ", ".join(f"{k} = {v}" for k, v in eng.items()))
-    return "\n".join(lines)
+def ensemble_distribution(ens, r: int | None = None, probe: str = "Z", **opts) -> dict[str, Any]:
+    """:func:`distribution` of C at site ``r`` (default: halfway along the longer side of W)."""
+    C = probe_otoc(ens, probe)
+    L = C.shape[2]
+    if r is None:
+        cols, _, _ = one_side(L, int(ens.site))
+        r = int(cols[len(cols) // 2])
+    if isinstance(r, bool) or not isinstance(r, Integral) or not 0 <= r < L:
+        raise InputError(f"r (the probe site) must be an integer in 0..{L - 1}, got {r!r}", arg="r")
+    out = distribution(C[:, :, int(r)], ens.times, **opts)
+    out["r"] = int(r)
+    out["d"] = abs(int(r) - int(ens.site))
+    out["probe"] = probe.upper()
+    return out

@@ -390,7 +390,7 @@ def _cmd_converge(args) -> int:
     desc = read_description(args.description)
     if args.dask is not None and args.workers > 1:
         raise InputError("give either --workers N (local processes) or --dask SPEC (Dask), not both")
-    _need_analysis("bond_convergence")
+    _need_analysis("bond_convergence", "trust")
     conv = converge(desc, args.chi, args.out, dt=args.dt, probe=args.probe, tol=args.tol, workers=args.workers,
                     dask=args.dask, progress=args.progress, log_interval=args.log_interval)
     import numpy as np
@@ -435,11 +435,11 @@ def _load(path):
 
 
 def _summary_text(summary: dict) -> str:
-    return _need_analysis("format_summary")(summary)
+    return _need_analysis("format_summary", "report")(summary)
 
 
 def _cmd_summary(args) -> int:
-    summarize = _need_analysis("summarize")
+    summarize = _need_analysis("summarize", "report")
     ens = _load(args.directory)
     s = summarize(ens, threshold=args.threshold, probe=_default_probe(ens, args.probe))
     print(json.dumps(s, indent=1) if args.json else _summary_text(s))
@@ -485,7 +485,7 @@ def _cmd_demo(args) -> int:
     from .store import RunDirectory
 
     data = _demo_data(args.data)
-    summarize = _need_analysis("summarize")
+    summarize = _need_analysis("summarize", "report")
     write_figures = _need_analysis("write_figures", "plots")
     require("matplotlib", "plot")  # the figures come last: fail before any work, not after it
     out = Path(args.out)

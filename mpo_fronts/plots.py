@@ -27,6 +27,7 @@ from typing import Any, Callable, Iterable, Sequence
 import numpy as np
 
 from . import analysis as an
+from . import trust
 from .errors import InputError, require
 
 __all__ = ["FIGURES", "plot_heatmap", "plot_distribution", "plot_light_cone", "plot_convergence", "plot_front",
@@ -90,23 +91,23 @@ def _colors(n: int, cmap: str = "viridis", lo: float = 0.1, hi: float = 0.8):
 
 # ------------------------------------------------------------------------------------------ figures
 def plot_heatmap(ens, threshold: float = 0.5, probe: str = "Z", *, levels: Sequence[float] | None = None,
-                 use_trust: bool = True, max_discarded: float = an.DEFAULT_MAX_DISCARDED):
+                 use_trust: bool = True, max_discarded: float = trust.DEFAULT_MAX_DISCARDED):
     """Ensemble-mean C(r, t) as a heat map on a log-time axis.
 
     Solid contour: mean curve at ``threshold``; dashed: median curve at ``threshold``; dotted: mean curve at
-    the extra ``levels``. Hatched cells are untrusted (see :func:`mpo_fronts.analysis.trust_mask`).
+    the extra ``levels``. Hatched cells are untrusted (see :func:`mpo_fronts.trust.trust_mask`).
     """
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
-    theta = an._check_threshold(threshold)
-    C = an._probe_otoc(ens, probe)
+    theta = an.check_threshold(threshold)
+    C = an.probe_otoc(ens, probe)
     t = np.asarray(ens.times, dtype=float)
     keep = _positive_times(t)
     t = t[keep]
     mean = C.mean(axis=0)[keep]
     median = np.median(C, axis=0)[keep]
-    mask, info = an.trust_mask(ens, use_trust, max_discarded)
+    mask, info = trust.trust_mask(ens, use_trust, max_discarded)
     L = C.shape[2]
     untrusted = (~np.broadcast_to(mask, C.shape).all(axis=0))[keep] if mask is not None else np.zeros(mean.shape, bool)
     fig, axes = _figure(6.4, 4.8)
@@ -198,7 +199,7 @@ def plot_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, lc: dict |
     crossings excluded as untrusted; small grey points: single realizations.
     """
     if lc is None:
-        lc = an.ensemble_light_cone(ens, threshold, probe, **opts)
+        lc = trust.ensemble_light_cone(ens, threshold, probe, **opts)
     d = lc["d"]
     cross, real = lc["crossings"], lc["realization_crossings"]
     fig, axes = _figure(8.8, 4.0, ncols=2)
@@ -256,9 +257,9 @@ def plot_convergence(ens, threshold: float = 0.5, probe: str = "Z"):
     if conv is None:
         raise InputError("this ensemble has no bond-dimension convergence data; run 'fronts converge' first "
                          "(or leave the 'convergence' figure out)")
-    theta = an._check_threshold(threshold)
+    theta = an.check_threshold(threshold)
     probe = str(conv.get("probe") or probe)  # the changes were measured with the probe of the study
-    C = an._probe_otoc(ens, probe)
+    C = an.probe_otoc(ens, probe)
     chis = [int(c) for c in np.asarray(conv["chis"]).reshape(-1)]
     dC = np.asarray(conv["max_dC"], dtype=float)
     cols, _, side = an.one_side(C.shape[2], int(ens.site))
@@ -288,7 +289,7 @@ def plot_convergence(ens, threshold: float = 0.5, probe: str = "Z"):
 
 def plot_front(ens, n_profiles: int = 6, **opts):
     """Right-weight front profiles at several times, and the front width against time on log axes."""
-    fr = an.ensemble_front(ens, **opts)
+    fr = trust.ensemble_front(ens, **opts)
     t = fr["times"]
     keep = _positive_times(t)
     # The output grid is usually log-spaced, so equally spaced indices are equally spaced in ln t.
@@ -344,7 +345,7 @@ def _check_only(only) -> list[str]:
 def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshold: float = 0.5, probe: str = "Z",
                   formats: Sequence[str] = ("png", "pdf"), *, r: int | None = None, dpi: int = 150,
                   n_boot: int = 500, seed: int = 0, use_trust: bool = True,
-                  max_discarded: float = an.DEFAULT_MAX_DISCARDED) -> list[Path]:
+                  max_discarded: float = trust.DEFAULT_MAX_DISCARDED) -> list[Path]:
     """Write the figures of a loaded ensemble to ``outdir``, one file per figure and format.
 
     Parameters
@@ -367,7 +368,7 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
     n_boot, seed
         Bootstrap of the light-cone and width fits (see :func:`mpo_fronts.analysis.light_cone`).
     use_trust, max_discarded
-        Trust mask as in :func:`mpo_fronts.analysis.summarize` (False: every point is used and nothing hatched).
+        Trust mask as in :func:`mpo_fronts.report.summarize` (False: every point is used and nothing hatched).
 
     Returns
     -------
@@ -378,8 +379,8 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
     fmts = [formats] if isinstance(formats, str) else list(formats)
     if not fmts or any(f not in _FORMATS for f in fmts):
         raise InputError(f"formats must be a non-empty list among {', '.join(_FORMATS)}, got {formats!r}")
-    an._check_threshold(threshold)
-    an._probe_otoc(ens, probe)
+    an.check_threshold(threshold)
+    an.probe_otoc(ens, probe)
     if getattr(ens, "convergence", None) is None:
         if only is not None and "convergence" in names:
             raise InputError("only names 'convergence', but this ensemble has no bond-dimension convergence "
@@ -396,7 +397,7 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
         elif name == "distribution":
             fig = plot_distribution(ens, r=r, probe=probe)
         elif name == "light_cone":
-            lc = lc or an.ensemble_light_cone(ens, threshold, probe, n_boot=n_boot, seed=seed, use_trust=use_trust,
+            lc = lc or trust.ensemble_light_cone(ens, threshold, probe, n_boot=n_boot, seed=seed, use_trust=use_trust,
                                               max_discarded=max_discarded)
             fig = plot_light_cone(ens, threshold, probe, lc=lc)
         elif name == "convergence":

@@ -118,13 +118,13 @@ def converge(description: RunDescription, chis: Sequence[int], out, *, dt: float
     """Run the description at each bond dimension into ``out/chi_016`` ... and store the convergence arrays.
 
     Every chi uses the same seeds (identical disorder). The OTOCs of ``probe`` (default: the first stored probe)
-    go to :func:`mpo_fronts.analysis.bond_convergence`, whose result is written to ``out/convergence.h5``;
+    go to :func:`mpo_fronts.trust.bond_convergence`, whose result is written to ``out/convergence.h5``;
     ``mpo_fronts.load(out)`` then loads the largest chi with ``.convergence`` attached.
 
     Returns
     -------
     dict
-        The convergence arrays (see :func:`mpo_fronts.analysis.bond_convergence`).
+        The convergence arrays (see :func:`mpo_fronts.trust.bond_convergence`).
     """
     from .store import atomic_h5, load, _write_convergence_group, CONVERGENCE_FILE, RUN_FILE
 
@@ -142,7 +142,7 @@ def converge(description: RunDescription, chis: Sequence[int], out, *, dt: float
              for chi in chis}
     for chi, d in descs.items():  # check every target before any work starts
         RunDirectory.check_target(out / f"chi_{chi:03d}", d)
-    from .analysis import bond_convergence  # noqa: F401  (fail early if missing)
+    from .trust import bond_convergence  # noqa: F401  (fail early if missing)
 
     otoc_by_chi = {}
     for chi, d in descs.items():

@@ -1,45 +1,12 @@
 """Tests of mpo_fronts.analysis: synthetic data with known answers, and one real engine run (clean XX chain)."""
 
-import json
-import types
-
 import numpy as np
 import pytest
 
 from mpo_fronts import analysis as an
+from mpo_fronts import report
 from mpo_fronts.errors import InputError
-
-
-# ------------------------------------------------------------------------------------------ synthetic data
-def logistic_front(t, d, centre, width, log_time=False):
-    """C = 1 / (1 + exp(-(t - centre) / width)) (or in ln t): a front with C = 1/2 exactly at t = centre."""
-    x = (np.log(t) - np.log(centre)) if log_time else (t - centre)
-    return 1.0 / (1.0 + np.exp(-x / width))
-
-
-def ballistic_ensemble(R=12, L=30, site=2, v=0.8, t0=1.0, tau=0.6, noise=0.5, t_max=60.0, seed=1):
-    """Realizations of a ballistic front: C(d, t) = logistic((t - d / v - t0 - eps) / tau), eps ~ N(0, noise)."""
-    rng = np.random.default_rng(seed)
-    t = np.geomspace(0.1, t_max, 120)
-    d = np.abs(np.arange(L) - site)
-    centre = d[None, None, :] / v + t0 + rng.normal(0.0, noise, (R, 1, L))
-    C = logistic_front(t[None, :, None], d, np.maximum(centre, 0.2), tau)
-    return t, C
-
-
-def fake_ensemble(times, C, site, rho=None, convergence=None, discarded=None):
-    """A duck-typed stand-in for a loaded ensemble (the attributes analysis and plots read)."""
-    R, n_t, L = C.shape
-    if rho is None:
-        x = np.arange(L) - site
-        rho = np.exp(-np.abs(x[None, None, :] - 0.8 * times[None, :, None])) * (x >= 0)
-        rho = np.broadcast_to(rho / rho.sum(-1, keepdims=True), C.shape)
-    return types.SimpleNamespace(
-        times=np.asarray(times), L=L, site=site, w="Z", probes=("X", "Y", "Z"), otoc=lambda v: C,
-        weights=None, right_weight=rho, fields=np.zeros((R, L)),
-        discarded_weight=np.zeros((R, n_t)) if discarded is None else discarded,
-        max_bond=np.full((R, n_t), 8), realizations=np.arange(R), description={"kind": "synthetic"},
-        engine={"chi": 32, "dt": 0.05, "order": 2, "cutoff": 0.0, "max_step": 0.05}, convergence=convergence)
+from synthetic_fronts import ballistic_ensemble, fake_ensemble, logistic_front
 
 
 # ------------------------------------------------------------------------------------------ crossings
@@ -227,59 +194,6 @@ def test_front_width_exponent_inside_interval():
     assert part["t_range"][1] < 20.0 and part["n_excluded_times"] == we["n_points"] - part["n_points"] > 0
 
 
-# ------------------------------------------------------------------------------------------ convergence, trust
-def test_bond_convergence_max_over_realizations_and_mask():
-    rng = np.random.default_rng(0)
-    base = rng.uniform(0, 1, (3, 4, 5))
-    d1 = np.zeros_like(base)
-    d1[1, 2, 3] = 5e-3  # one realization differs at one point between chi = 16 and 32
-    d2 = np.zeros_like(base)
-    d2[2, 0, 0] = -2e-3  # and at another point between chi = 32 and 64
-    res = an.bond_convergence({64: base + d1 + d2, 16: base, 32: base + d1}, tol=1e-3)
-    assert res["chis"] == [16, 32, 64]
-    assert res["max_dC"].shape == (2, 4, 5)
-    assert res["max_dC"][0, 2, 3] == pytest.approx(5e-3) and res["max_dC"][1, 0, 0] == pytest.approx(2e-3)
-    expected = np.ones((4, 5), bool)
-    expected[0, 0] = False
-    np.testing.assert_array_equal(res["trusted"], expected)
-    with pytest.raises(InputError, match="otoc_by_chi"):
-        an.bond_convergence({16: base})
-    with pytest.raises(InputError, match=r"otoc_by_chi\[32\]"):
-        an.bond_convergence({16: base, 32: base[:, :2]})
-
-
-def test_trust_fallback_to_discarded_weight():
-    t, C = ballistic_ensemble(R=4)
-    dw = np.zeros((4, t.size))
-    dw[1, 60:] = 1e-2  # one realization truncates heavily from time index 60 on
-    ens = fake_ensemble(t, C, 2, discarded=dw)
-    mask, info = an.trust_mask(ens)
-    assert info["source"] == "discarded_weight" and "discarded weight" in info["criterion"]
-    assert info["n_untrusted"] == (t.size - 60) * C.shape[2]
-    assert not mask[1, 60:].any() and mask[0].all()
-    s = an.summarize(ens, n_boot=50)
-    assert s["trust"]["source"] == "discarded_weight"
-    assert s["trusted_fraction"] == pytest.approx(1 - (t.size - 60) / (4 * t.size))
-    assert s["largest_discarded_weight"] == pytest.approx(1e-2)
-
-
-# ------------------------------------------------------------------------------------------ summary
-def test_summarize_is_json_with_required_keys():
-    t, C = ballistic_ensemble(R=6)
-    conv = an.bond_convergence({16: C, 32: C + 1e-5})
-    ens = fake_ensemble(t, C, 2, convergence=conv)
-    s = an.summarize(ens, threshold=0.5, probe="Z", n_boot=100)
-    back = json.loads(json.dumps(s, allow_nan=False))
-    assert back["threshold"] == 0.5
-    for key in ("butterfly_velocity", "log_light_cone"):
-        for sub in ("value", "ci_low", "ci_high", "r_range", "n_points", "r2", "n_excluded_untrusted"):
-            assert sub in back[key], (key, sub)
-    assert back["trust"]["source"] == "convergence" and back["trusted_fraction"] == 1.0
-    assert back["engine"]["chi"] == 32 and back["largest_bond"] == 8
-    text = an.format_summary(s)
-    assert "v_B" in text and "xi" in text and f"{s['butterfly_velocity']['value']:.4g}" in text
-
-
 def test_bad_arguments_name_themselves():
     t, C = ballistic_ensemble(R=3)
     with pytest.raises(InputError, match="threshold"):
@@ -292,7 +206,7 @@ def test_bad_arguments_name_themselves():
         an.light_cone(t[:-1], C, 2)
     ens = fake_ensemble(t, C, 2)
     with pytest.raises(InputError, match="probe"):
-        an.summarize(ens, probe="Q")
+        report.summarize(ens, probe="Q")
 
 
 # ------------------------------------------------------------------------------------------ physics

@@ -9,6 +9,7 @@ pytest.importorskip("matplotlib")
 
 from mpo_fronts import analysis as an  # noqa: E402
 from mpo_fronts import plots  # noqa: E402
+from mpo_fronts import trust  # noqa: E402
 from mpo_fronts.errors import InputError  # noqa: E402
 
 
@@ -26,7 +27,7 @@ def synthetic_ensemble(with_convergence=True, R=6, L=20, site=3):
     conv = None
     if with_convergence:
         late = 1e-4 * (t / 3.0) ** 2  # changes grow with time and cross tol = 1e-3 near t = 9.5
-        conv = an.bond_convergence({16: C, 32: C + late[None, :, None] * 3, 64: C + late[None, :, None] * 4})
+        conv = trust.bond_convergence({16: C, 32: C + late[None, :, None] * 3, 64: C + late[None, :, None] * 4})
     return types.SimpleNamespace(
         times=t, L=L, site=site, w="Z", probes=("X", "Y", "Z"), otoc=lambda v: C, right_weight=rho,
         weights=None, fields=np.zeros((R, L)), discarded_weight=np.zeros((R, t.size)),

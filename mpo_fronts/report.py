@@ -1,0 +1,188 @@
+"""Summaries of a loaded OTOC ensemble: the numbers a researcher wants, as JSON-able data and as text.
+
+:func:`summarize` gathers the light cone (crossing times and both fits), the front width, the distribution at
+one site and the error information (trust criterion, discarded weight, bond dimension, evolution settings) of
+a loaded ensemble (:func:`mpo_fronts.load`); :func:`format_summary` prints it as a table; :func:`jsonable`
+turns arrays and non-finite numbers into JSON values.
+"""
+
+from __future__ import annotations
+
+from numbers import Integral, Real
+from typing import Any, Mapping
+
+import numpy as np
+
+from .analysis import LAWS, STATUS_NAMES, Record, ensemble_distribution
+from .trust import DEFAULT_MAX_DISCARDED, ensemble_front, ensemble_light_cone
+
+__all__ = ["summarize", "format_summary", "jsonable"]
+
+
+def jsonable(obj):
+    """``obj`` with arrays as lists, numpy scalars as Python numbers and non-finite numbers as None."""
+    if isinstance(obj, Record):
+        obj = obj.to_dict()
+    if isinstance(obj, Mapping):
+        return {str(k): jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [jsonable(v) for v in obj.tolist()]
+    if isinstance(obj, (bool, np.bool_)):
+        return bool(obj)
+    if isinstance(obj, (Integral, np.integer)):
+        return int(obj)
+    if isinstance(obj, (Real, np.floating)):
+        v = float(obj)
+        return v if np.isfinite(v) else None
+    if obj is None or isinstance(obj, str):
+        return obj
+    return str(obj)
+
+
+_FIT_KEYS = ("law", "parameter", "units", "value", "ci_low", "ci_high", "ci", "ci_method", "r_range",
+             "n_points", "r2", "rms_residual", "rms_log_residual", "slope", "intercept", "intercept_name",
+             "slope_ci", "intercept_ci", "n_excluded_untrusted", "n_unreached", "n_early", "n_boot_valid",
+             "distances", "tstar", "residuals")
+
+
+def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "mean", side: str = "auto",
+              r_range: tuple[int, int] | None = None, d_min: int = 1, n_boot: int = 500, ci: float = 0.95,
+              seed: int = 0, use_trust: bool = True, max_discarded: float = DEFAULT_MAX_DISCARDED
+              ) -> dict[str, Any]:
+    """The numbers a researcher wants from a finished ensemble, as a JSON-able dict.
+
+    Parameters
+    ----------
+    ens : loaded ensemble (see :func:`mpo_fronts.load`)
+    threshold : float
+        theta on the [0, 2] scale of C (default 0.5).
+    probe : {'X', 'Y', 'Z'}
+        Probe V of C(r, t).
+    curve, side, r_range, d_min, n_boot, ci, seed
+        See :func:`light_cone`.
+    use_trust : bool
+        Use only trusted points (convergence mask, else the discarded-weight criterion); default True.
+    max_discarded : float
+        Discarded-weight criterion when the ensemble has no convergence data.
+
+    Returns
+    -------
+    dict
+        Top-level ``threshold``, ``probe``; ``butterfly_velocity`` and ``log_light_cone``, each with
+        ``value``, ``ci_low``, ``ci_high``, ``r_range`` (inclusive distances d = |r - i|), fit quality
+        (``r2``, ``rms_residual``, ``rms_log_residual``), ``n_points``, exclusion counts and the residuals;
+        ``law_comparison``; ``crossings`` (distances, t* of the curve, status names, per-realization status
+        counts); ``front`` (width exponent); ``distribution`` (largest bimodality at one site); ``trust``
+        (criterion, trusted fraction); ``largest_discarded_weight``, ``largest_bond``, ``engine``,
+        ``description``. Non-finite numbers become None.
+
+    Examples
+    --------
+    >>> import json, mpo_fronts as mf                                   # doctest: +SKIP
+    >>> s = mf.analysis.summarize(mf.load("runs/demo"), threshold=0.5)  # doctest: +SKIP
+    >>> print(json.dumps(s)[:40])                                       # doctest: +SKIP
+    """
+    lc = ensemble_light_cone(ens, threshold, probe, use_trust=use_trust, max_discarded=max_discarded,
+                             curve=curve, side=side, r_range=r_range, d_min=d_min, n_boot=n_boot, ci=ci, seed=seed)
+    fits = {law: {k: lc["fits"][law].get(k) for k in _FIT_KEYS} for law in LAWS}
+    rb, rl = fits["ballistic"]["rms_log_residual"], fits["log"]["rms_log_residual"]
+    smaller = None
+    if np.isfinite(rb) and np.isfinite(rl):
+        smaller = "ballistic" if rb < rl else "log"
+    fr = ensemble_front(ens, use_trust=use_trust, max_discarded=max_discarded, n_boot=n_boot, ci=ci, seed=seed)
+    we = fr["width_exponent"]
+    dist = ensemble_distribution(ens, probe=probe)
+    bim = dist["bimodality"]
+    k_max = int(np.nanargmax(bim)) if np.any(np.isfinite(bim)) else None
+    cross = lc["crossings"]
+    dw = np.asarray(ens.discarded_weight, dtype=float)
+    mb = np.asarray(ens.max_bond)
+    out = {
+        "threshold": lc["threshold"],
+        "probe": lc["probe"],
+        "curve": curve,
+        "ci_level": ci,
+        "site": lc["site"],
+        "side": lc["side"],
+        "L": int(ens.L),
+        "n_realizations": lc["R"],
+        "n_times": int(len(ens.times)),
+        "t_range": [float(ens.times[0]), float(ens.times[-1])],
+        "distance": "d = |r - site| on the side of W named in 'side'; t* in units of 1/J",
+        "butterfly_velocity": fits["ballistic"],
+        "log_light_cone": fits["log"],
+        "law_comparison": {"rms_log_residual_ballistic": rb, "rms_log_residual_log": rl, "smaller": smaller},
+        "crossings": {"distances": lc["d"], "tstar": cross.tstar,
+                      "status": [STATUS_NAMES[int(s)] for s in cross.status],
+                      "tstar_boot_std": lc["tstar_boot_std"],
+                      "realization_counts": lc["realization_crossings"].counts()},
+        "front": {"width_exponent": {k: we[k] for k in ("value", "ci_low", "ci_high", "ci_method", "t_range",
+                                                        "n_points", "r2", "law", "n_excluded_times")},
+                  "final_position": fr["position"][-1], "final_width": fr["width"][-1],
+                  "note": "from the right-weight profile: the right end of W(t)"},
+        "distribution": {"r": dist["r"], "d": dist["d"], "measure": "Sarle's bimodality coefficient "
+                         "(SAS/STAT PROC CLUSTER; Pfister et al. 2013); > 5/9 suggests two modes",
+                         "max_bimodality": bim[k_max] if k_max is not None else None,
+                         "t_at_max": float(ens.times[k_max]) if k_max is not None else None},
+        "trust": lc["trust"],
+        "trusted_fraction": lc["trust"]["trusted_fraction"],
+        "largest_discarded_weight": float(np.nanmax(dw)) if dw.size else None,
+        "largest_bond": int(mb.max()) if mb.size else None,
+        "engine": dict(getattr(ens, "engine", {}) or {}),
+        "description": dict(getattr(ens, "description", {}) or {}),
+    }
+    return jsonable(out)
+
+
+def _fmt(v, spec: str = ".4g") -> str:
+    return "-" if v is None else format(v, spec) if isinstance(v, (int, float)) else str(v)
+
+
+def format_summary(d: Mapping[str, Any]) -> str:
+    """The summary of :func:`summarize` as a plain-text table."""
+    lvl = d.get("ci_level", 0.95)
+    lines = [
+        f"OTOC light cone: probe V = {d.get('probe')}, W at site {d.get('site')} of L = {d.get('L')}, "
+        f"{d.get('side')} side, {d.get('n_realizations')} realization(s), t in [{_fmt(d['t_range'][0])}, "
+        f"{_fmt(d['t_range'][1])}] (1/J)",
+        f"threshold theta = {_fmt(d.get('threshold'))} on C in [0, 2]; crossing times of the ensemble "
+        f"{d.get('curve')} of C, interpolated in ln t",
+        "",
+        f"{'quantity':<26}{'value':>10}  {f'{int(round(lvl * 100))}% interval':<22}{'range':<15}{'points':>6}"
+        f"{'R^2':>8}{'rms ln':>9}",
+    ]
+    for key, name in (("butterfly_velocity", "v_B (sites per 1/J)"), ("log_light_cone", "xi (sites)")):
+        f = d.get(key) or {}
+        rr = f.get("r_range") or [None, None]
+        interval = f"[{_fmt(f.get('ci_low'))}, {_fmt(f.get('ci_high'))}]"
+        lines.append(f"{name:<26}{_fmt(f.get('value')):>10}  {interval:<22}{f'd {rr[0]}..{rr[1]}':<15}"
+                     f"{_fmt(f.get('n_points')):>6}{_fmt(f.get('r2'), '.3f'):>8}"
+                     f"{_fmt(f.get('rms_log_residual'), '.3f'):>9}")
+    we = (d.get("front") or {}).get("width_exponent") or {}
+    tr = we.get("t_range") or [None, None]
+    interval = f"[{_fmt(we.get('ci_low'))}, {_fmt(we.get('ci_high'))}]"
+    lines.append(f"{'width exponent beta':<26}{_fmt(we.get('value')):>10}  {interval:<22}"
+                 f"{'t ' + _fmt(tr[0], '.3g') + '..' + _fmt(tr[1], '.3g'):<15}{_fmt(we.get('n_points')):>6}"
+                 f"{_fmt(we.get('r2'), '.3f'):>8}{'':>9}")
+    bv = d.get("butterfly_velocity") or {}
+    lc = d.get("law_comparison") or {}
+    lines += [
+        "",
+        f"fits: {bv.get('law')} and {(d.get('log_light_cone') or {}).get('law')}; smaller rms ln-residual: "
+        f"{lc.get('smaller')}",
+        f"distances beyond d_low: {bv.get('n_unreached')} unreached, {bv.get('n_excluded_untrusted')} excluded "
+        f"as untrusted; intervals: {bv.get('ci_method')}",
+        f"trust: {(d.get('trust') or {}).get('criterion')}; trusted fraction {_fmt(d.get('trusted_fraction'), '.3f')}",
+        f"largest discarded weight {_fmt(d.get('largest_discarded_weight'), '.3g')}, largest bond "
+        f"{_fmt(d.get('largest_bond'))}",
+    ]
+    dist = d.get("distribution") or {}
+    lines.append(f"bimodality at r = {dist.get('r')} (d = {dist.get('d')}): max "
+                 f"{_fmt(dist.get('max_bimodality'), '.3f')} at t = {_fmt(dist.get('t_at_max'), '.3g')} "
+                 "(Sarle's coefficient, > 5/9 suggests two modes)")
+    eng = d.get("engine") or {}
+    if eng:
+        lines.append("engine: " + ", ".join(f"{k} = {v}" for k, v in eng.items()))
+    return "\n".join(lines)
