@@ -651,6 +651,9 @@ class LightCone(Record):
         Set by :func:`mpo_fronts.trust.ensemble_light_cone`.
     trust : dict or None
         The trust criterion used (set by :func:`mpo_fronts.trust.ensemble_light_cone`).
+    errors : object or None
+        The systematic error budget of the crossing times (a :class:`mpo_fronts.trust.CrossingErrors`), when
+        the light cone was computed with one (:func:`mpo_fronts.trust.trusted_light_cone`).
     """
 
     d: np.ndarray
@@ -673,6 +676,7 @@ class LightCone(Record):
     ci: float = 0.95
     probe: str | None = None
     trust: dict | None = None
+    errors: Any = None
 
 
 def _no_fit(f: dict) -> dict:
@@ -727,13 +731,33 @@ def _least_squares_interval(law: str, f: dict, x: np.ndarray, d_band: np.ndarray
     return out
 
 
+def _combined_interval(law: str, f: dict, x: np.ndarray, sys_iv: dict, lsq_iv: dict) -> dict[str, Any]:
+    """One realization with systematic errors: the half-widths of the slope from the systematic draws and from
+    least squares (the misfit of the law) added in quadrature, on each side; the same for the intercept."""
+    if "slope_ci" not in sys_iv or "slope_ci" not in lsq_iv:
+        return sys_iv if "slope_ci" in sys_iv else lsq_iv
+    out: dict[str, Any] = {"n_boot_valid": sys_iv["n_boot_valid"]}
+    for key, centre in (("slope_ci", f["slope"]), ("intercept_ci", f["intercept"])):
+        (a_lo, a_hi), (b_lo, b_hi) = sys_iv[key], lsq_iv[key]
+        out[key] = [float(centre - np.hypot(centre - a_lo, centre - b_lo)),
+                    float(centre + np.hypot(a_hi - centre, b_hi - centre))]
+    out["ci_low"], out["ci_high"] = _reciprocal_interval(*out["slope_ci"])
+    (sl, sh), (ll, lh) = sys_iv["band"], lsq_iv["band"]
+    if law == "log":
+        sl, sh, ll, lh = np.log(sl), np.log(sh), np.log(ll), np.log(lh)
+    mid = 0.5 * (ll + lh)  # the least-squares line itself
+    lo, hi = mid - np.hypot(mid - sl, mid - ll), mid + np.hypot(sh - mid, lh - mid)
+    out["band"] = (np.exp(lo), np.exp(hi)) if law == "log" else (lo, hi)
+    return out
+
+
 _LSQ_METHOD = ("least-squares standard error of the slope (Student t); no bootstrap (a single realization or "
                "n_boot = 0): it measures the misfit of the law")
 
 
 def _fit_law(law: str, d: np.ndarray, use: np.ndarray, tstar: np.ndarray, tb: np.ndarray | None,
              d_band: np.ndarray, lo: int, hi: int, ci: float, counts: dict[str, int], method: str,
-             systematic: bool) -> LawFit:
+             systematic: bool, sys_only: bool = False) -> LawFit:
     """Fit one law to the crossing times ``tstar[use]``, with intervals from ``tb`` (draws) or least squares."""
     formula, pname, units = LAWS[law]
     x = d[use].astype(float)
@@ -746,7 +770,11 @@ def _fit_law(law: str, d: np.ndarray, use: np.ndarray, tstar: np.ndarray, tb: np
     with np.errstate(invalid="ignore", divide="ignore"):
         log_res = np.log(ts_use) - np.log(np.where(pred_t > 0, pred_t, np.nan))
     alpha = 100 * (1 - ci) / 2
-    if tb is not None and x.size >= 3:
+    if tb is not None and x.size >= 3 and sys_only:
+        iv = _combined_interval(law, f, x, _boot_interval(law, d, tb, d_band, alpha),
+                                _least_squares_interval(law, f, x, d_band, alpha))
+        ci_method = method
+    elif tb is not None and x.size >= 3:
         iv = _boot_interval(law, d, tb, d_band, alpha)
         ci_method = method
     else:
@@ -868,7 +896,7 @@ def light_cone(times, C, site: int, threshold: float = 0.5, *, trusted=None, cur
         unknown = ~np.isfinite(sys).all(axis=0) & (cross.status == CROSSED)
         cross.status = np.where(unknown, UNTRUSTED, cross.status).astype(np.int8)
         cross.tstar = np.where(unknown, np.nan, cross.tstar)
-        sys = np.nan_to_num(sys)
+        sys = np.where(np.isfinite(sys), sys, 0.0)
     real = crossing_times(t, Cs, theta, ok_s)
 
     # 2. the fit range and what it leaves out
@@ -902,19 +930,21 @@ def light_cone(times, C, site: int, threshold: float = 0.5, *, trusted=None, cur
 
     # 5. systematic errors enter the fits as uniform shifts in every draw
     has_sys = tstar_sys is not None and bool(np.any(sys[:, use] > 0))
+    sys_only = has_sys and tb is None  # no statistical draws: the misfit of the law enters by least squares
     if has_sys:
         rng = np.random.default_rng([seed, 1])
         if tb is None:
             n_draw = n_boot if n_boot > 0 else 500
             tb = np.where(use[None, :], np.broadcast_to(ts, (n_draw, d.size)), np.nan)
-            method = (f"{n_draw} draws of every t* within its systematic interval (truncation, Trotter), "
-                      f"percentile interval, seed = {seed}; a single realization: no statistical part")
+            method = (f"no statistical draws (one realization or n_boot = 0): {n_draw} draws of every t* within its systematic interval (truncation, "
+                      f"Trotter), percentile interval, seed = {seed}, combined in quadrature with the "
+                      f"least-squares interval (Student t), which measures the misfit of the law")
         else:
             method += "; every t* also shifted within its systematic interval (truncation, Trotter) in each draw"
         tb = tb - ts[None, :] + _systematic_draws(ts, sys, tb.shape[0], rng)
 
     d_band = np.linspace(lo, hi, n_band) if hi >= lo else np.empty(0)
-    fits = {law: _fit_law(law, d, use, cross.tstar, tb, d_band, lo, hi, ci, counts, method, has_sys)
+    fits = {law: _fit_law(law, d, use, cross.tstar, tb, d_band, lo, hi, ci, counts, method, has_sys, sys_only)
             for law in LAWS}
     return LightCone(d=d, cols=cols, side=side, site=int(site), threshold=theta, curve=curve, times=t,
                      crossings=cross, realization_crossings=real, tstar_boot_std=tstar_boot_std,

@@ -199,9 +199,12 @@ def build_parser() -> argparse.ArgumentParser:
                    help="Trotter step for every chi (default: engine.dt of the description)")
     p.add_argument("--probe", type=_probe, default=None,
                    help="probe V whose C is compared (default: the first of operators.v)")
-    p.add_argument("--tol", type=_positive_float, default=1e-3,
-                   help="largest change of C between the two largest chi for a point to count as trusted "
-                        "(default: 0.001)")
+    p.add_argument("--tol", type=_positive_float, default=1e-6,
+                   help="absolute part of the tolerance: a point (t, r) counts as trusted when C changed by less "
+                        "than TOL + REL_TOL * C between the two largest chi (default: 1e-06)")
+    p.add_argument("--rel-tol", type=float, default=0.05, metavar="REL_TOL",
+                   help="relative part of the tolerance, 0..1 (default: 0.05); crossing times are trusted by "
+                        "their own change, see 'fronts summary'")
     _add_executor_options(p)
 
     p = sub.add_parser("summary", help="light-cone velocities, fits and error information of a run",
@@ -391,13 +394,14 @@ def _cmd_converge(args) -> int:
     if args.dask is not None and args.workers > 1:
         raise InputError("give either --workers N (local processes) or --dask SPEC (Dask), not both")
     _need_analysis("bond_convergence", "trust")
-    conv = converge(desc, args.chi, args.out, dt=args.dt, probe=args.probe, tol=args.tol, workers=args.workers,
+    conv = converge(desc, args.chi, args.out, dt=args.dt, probe=args.probe, tol=args.tol, rel_tol=args.rel_tol,
+                    workers=args.workers,
                     dask=args.dask, progress=args.progress, log_interval=args.log_interval)
     import numpy as np
 
     trusted = np.asarray(conv.get("trusted"))
     _say(f"convergence study in {args.out}: chi = {', '.join(str(c) for c in args.chi)}, probe "
-         f"{conv.get('probe')}, tol {args.tol:g}")
+         f"{conv.get('probe')}, tolerance {args.tol:g} + {args.rel_tol:g} C")
     if "max_dC" in conv:
         md = np.asarray(conv["max_dC"])
         for i in range(md.shape[0]):
@@ -531,7 +535,8 @@ def _paragraph(message: str) -> str:
 
 #: Library argument names (InputError.arg) -> the command-line option that sets them, for error messages.
 _FLAGS = {"L": "--L", "realizations": "--realizations", "chis": "--chi", "probe": "--probe", "shard": "--shard",
-          "dask": "--dask", "workers": "--workers", "overwrite": "--force", "tol": "--tol", "dt": "--dt",
+          "dask": "--dask", "workers": "--workers", "overwrite": "--force", "tol": "--tol", "rel_tol": "--rel-tol",
+          "dt": "--dt",
           "threshold": "--threshold", "only": "--only"}
 
 

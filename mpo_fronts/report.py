@@ -13,8 +13,9 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .analysis import LAWS, STATUS_NAMES, Record, ensemble_distribution
-from .trust import DEFAULT_MAX_DISCARDED, ensemble_front, ensemble_light_cone
+from .analysis import CROSSED, LAWS, STATUS_NAMES, Record, ensemble_distribution
+from .trust import (DEFAULT_MAX_DISCARDED, DEFAULT_TSTAR_TOL, LARGE_DISCARDED_WEIGHT, discarded_weight_warnings,
+                    ensemble_front, ensemble_light_cone)
 
 __all__ = ["summarize", "format_summary", "jsonable"]
 
@@ -44,13 +45,19 @@ def jsonable(obj):
 _FIT_KEYS = ("law", "parameter", "units", "value", "ci_low", "ci_high", "ci", "ci_method", "r_range",
              "n_points", "r2", "rms_residual", "rms_log_residual", "slope", "intercept", "intercept_name",
              "slope_ci", "intercept_ci", "n_excluded_untrusted", "n_unreached", "n_early", "n_boot_valid",
-             "distances", "tstar", "residuals")
+             "distances", "tstar", "residuals", "d_range", "systematic")
+
+
+def _half_widths(err) -> np.ndarray:
+    """Largest of the two sides of a (2, n_d) error array, per distance."""
+    return np.max(np.asarray(err, dtype=float), axis=0)
 
 
 def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "mean", side: str = "auto",
               r_range: tuple[int, int] | None = None, d_min: int = 1, n_boot: int = 500, ci: float = 0.95,
-              seed: int = 0, use_trust: bool = True, max_discarded: float = DEFAULT_MAX_DISCARDED
-              ) -> dict[str, Any]:
+              seed: int = 0, use_trust: bool = True, max_discarded: float = DEFAULT_MAX_DISCARDED,
+              tstar_tol: float = DEFAULT_TSTAR_TOL, trotter: Mapping | None = None,
+              max_lost: float = LARGE_DISCARDED_WEIGHT) -> dict[str, Any]:
     """The numbers a researcher wants from a finished ensemble, as a JSON-able dict.
 
     Parameters
@@ -61,31 +68,46 @@ def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "me
     probe : {'X', 'Y', 'Z'}
         Probe V of C(r, t).
     curve, side, r_range, d_min, n_boot, ci, seed
-        See :func:`light_cone`.
+        See :func:`mpo_fronts.analysis.light_cone`.
     use_trust : bool
-        Use only trusted points (convergence mask, else the discarded-weight criterion); default True.
+        Fit only trusted crossings and use only trusted points (see :mod:`mpo_fronts.trust`); default True.
     max_discarded : float
-        Discarded-weight criterion when the ensemble has no convergence data.
+        Discarded-weight criterion of a point when the ensemble has no convergence study for ``probe``.
+    tstar_tol : float
+        Largest truncation plus Trotter error of a fitted crossing time, relative to t* (default 0.05).
+    trotter : dict, optional
+        :func:`mpo_fronts.trust.trotter_convergence` of this run against a run at a second time step; without
+        it the Trotter error is not included (the summary says so).
+    max_lost : float
+        Discarded weight (fraction of W's weight) above which a realization's later times are never fitted
+        and the summary warns (default 0.1).
 
     Returns
     -------
     dict
-        Top-level ``threshold``, ``probe``; ``butterfly_velocity`` and ``log_light_cone``, each with
-        ``value``, ``ci_low``, ``ci_high``, ``r_range`` (inclusive distances d = |r - i|), fit quality
-        (``r2``, ``rms_residual``, ``rms_log_residual``), ``n_points``, exclusion counts and the residuals;
-        ``law_comparison``; ``crossings`` (distances, t* of the curve, status names, per-realization status
-        counts); ``front`` (width exponent); ``distribution`` (largest bimodality at one site); ``trust``
-        (criterion, trusted fraction); ``largest_discarded_weight``, ``largest_bond``, ``engine``,
+        Top-level ``threshold``, ``probe``, ``operator`` (W), ``site``, ``disorder_W`` (None for a model
+        without disorder); ``butterfly_velocity`` and ``log_light_cone``, each with ``value``, ``ci_low``,
+        ``ci_high``, ``d_range`` (inclusive distances d = |r - i|; also as ``r_range``, its older name), fit
+        quality (``r2``, ``rms_residual``, ``rms_log_residual``), ``n_points``, exclusion counts, the
+        residuals and ``systematic`` (whether the interval includes the systematic errors of t*);
+        ``law_comparison``; ``crossings``: ``distances``, ``tstar`` of the curve, ``t_low`` and ``t_high``
+        (the interval of each t*, None where there is no crossing), ``status`` names, ``t_errors`` (half-widths
+        per part: statistical, truncation, trotter, interpolation), ``error_budget`` (words),
+        ``tstar_boot_std``, per-realization status counts; ``front`` (width exponent); ``distribution``
+        (largest bimodality at one site); ``trust`` (criteria, trusted fraction); ``warnings`` (list of
+        str, empty when nothing is wrong); ``largest_discarded_weight``, ``largest_bond``, ``engine``,
         ``description``. Non-finite numbers become None.
 
     Examples
     --------
     >>> import json, mpo_fronts as mf                                   # doctest: +SKIP
-    >>> s = mf.analysis.summarize(mf.load("runs/demo"), threshold=0.5)  # doctest: +SKIP
+    >>> from mpo_fronts.report import summarize                        # doctest: +SKIP
+    >>> s = summarize(mf.load("runs/demo"), threshold=0.5)              # doctest: +SKIP
     >>> print(json.dumps(s)[:40])                                       # doctest: +SKIP
     """
     lc = ensemble_light_cone(ens, threshold, probe, use_trust=use_trust, max_discarded=max_discarded,
-                             curve=curve, side=side, r_range=r_range, d_min=d_min, n_boot=n_boot, ci=ci, seed=seed)
+                             tstar_tol=tstar_tol, trotter=trotter, max_lost=max_lost, curve=curve, side=side,
+                             r_range=r_range, d_min=d_min, n_boot=n_boot, ci=ci, seed=seed)
     fits = {law: {k: lc["fits"][law].get(k) for k in _FIT_KEYS} for law in LAWS}
     rb, rl = fits["ballistic"]["rms_log_residual"], fits["log"]["rms_log_residual"]
     smaller = None
@@ -99,14 +121,45 @@ def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "me
     cross = lc["crossings"]
     dw = np.asarray(ens.discarded_weight, dtype=float)
     mb = np.asarray(ens.max_bond)
+    crossed = cross.status == CROSSED
+    err = lc.errors
+    if err is not None:
+        sys_half = _half_widths(err.total)
+        with np.errstate(invalid="ignore"):  # the statistical part alone, from the combined interval
+            q_lo = np.sqrt(np.maximum((cross.tstar - lc.tstar_low) ** 2 - err.total[0] ** 2, 0.0))
+            q_hi = np.sqrt(np.maximum((lc.tstar_high - cross.tstar) ** 2 - err.total[1] ** 2, 0.0))
+        stat = np.where(crossed & np.isfinite(sys_half), np.maximum(q_lo, q_hi), np.nan)
+        parts = {"statistical": stat}
+        parts.update({k: np.where(crossed, _half_widths(getattr(err, k)), np.nan)
+                      for k in ("truncation", "trotter", "interpolation")})
+        budget = (f"t_low, t_high: t* minus / plus the sum of the truncation ({err.truncation_source}), Trotter "
+                  f"({err.trotter_source}) and interpolation errors, added in quadrature to the statistical "
+                  f"{int(round(100 * ci))}% bootstrap interval over realizations"
+                  + (" (none: one realization)" if lc.R < 2 else ""))
+    else:
+        parts = {"statistical": np.where(crossed, np.maximum(cross.tstar - lc.tstar_low,
+                                                             lc.tstar_high - cross.tstar), np.nan)}
+        budget = (f"t_low, t_high: the statistical {int(round(100 * ci))}% bootstrap interval over realizations "
+                  "only (trust not applied, so no systematic errors)")
+    warnings = list(discarded_weight_warnings(dw, ens.times, max_lost))
+    if (lc.trust or {}).get("note"):
+        warnings.append(lc.trust["note"])
+    n_fit = fits["ballistic"]["n_points"]
+    if n_fit < 3:
+        warnings.append(f"only {n_fit} distance(s) with a trusted crossing of C = {lc.threshold:g} in the fit "
+                        "range: no light-cone fit")
+    model = (getattr(ens, "description", None) or {}).get("model", {}) or {}
     out = {
         "threshold": lc["threshold"],
         "probe": lc["probe"],
+        "operator": str(getattr(ens, "w", "") or "") or None,
         "curve": curve,
         "ci_level": ci,
         "site": lc["site"],
         "side": lc["side"],
         "L": int(ens.L),
+        "model": model.get("kind"),
+        "disorder_W": model.get("W"),
         "n_realizations": lc["R"],
         "n_times": int(len(ens.times)),
         "t_range": [float(ens.times[0]), float(ens.times[-1])],
@@ -114,8 +167,9 @@ def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "me
         "butterfly_velocity": fits["ballistic"],
         "log_light_cone": fits["log"],
         "law_comparison": {"rms_log_residual_ballistic": rb, "rms_log_residual_log": rl, "smaller": smaller},
-        "crossings": {"distances": lc["d"], "tstar": cross.tstar,
+        "crossings": {"distances": lc["d"], "tstar": cross.tstar, "t_low": lc.tstar_low, "t_high": lc.tstar_high,
                       "status": [STATUS_NAMES[int(s)] for s in cross.status],
+                      "t_errors": parts, "error_budget": budget,
                       "tstar_boot_std": lc["tstar_boot_std"],
                       "realization_counts": lc["realization_crossings"].counts()},
         "front": {"width_exponent": {k: we[k] for k in ("value", "ci_low", "ci_high", "ci_method", "t_range",
@@ -128,6 +182,7 @@ def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "me
                          "t_at_max": float(ens.times[k_max]) if k_max is not None else None},
         "trust": lc["trust"],
         "trusted_fraction": lc["trust"]["trusted_fraction"],
+        "warnings": warnings,
         "largest_discarded_weight": float(np.nanmax(dw)) if dw.size else None,
         "largest_bond": int(mb.max()) if mb.size else None,
         "engine": dict(getattr(ens, "engine", {}) or {}),

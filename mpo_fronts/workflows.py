@@ -114,11 +114,12 @@ def check_against_exact(description: RunDescription, L: int = 10, realizations: 
 
 
 def converge(description: RunDescription, chis: Sequence[int], out, *, dt: float | None = None,
-             probe: str | None = None, tol: float = 1e-2, **run_kwargs) -> dict:
+             probe: str | None = None, tol: float = 1e-2, rel_tol: float = 0.0, **run_kwargs) -> dict:
     """Run the description at each bond dimension into ``out/chi_016`` ... and store the convergence arrays.
 
     Every chi uses the same seeds (identical disorder). The OTOCs of ``probe`` (default: the first stored probe)
-    go to :func:`mpo_fronts.trust.bond_convergence`, whose result is written to ``out/convergence.h5``;
+    go to :func:`mpo_fronts.trust.bond_convergence` (with ``tol`` and ``rel_tol``), whose result is written to
+    ``out/convergence.h5``;
     ``mpo_fronts.load(out)`` then loads the largest chi with ``.convergence`` attached.
 
     Returns
@@ -142,13 +143,15 @@ def converge(description: RunDescription, chis: Sequence[int], out, *, dt: float
              for chi in chis}
     for chi, d in descs.items():  # check every target before any work starts
         RunDirectory.check_target(out / f"chi_{chi:03d}", d)
-    from .trust import bond_convergence  # noqa: F401  (fail early if missing)
+    from .trust import bond_convergence, check_tolerances
+
+    check_tolerances(tol, rel_tol)  # before any work
 
     otoc_by_chi = {}
     for chi, d in descs.items():
         run_ensemble(d, out / f"chi_{chi:03d}", **run_kwargs)
         otoc_by_chi[chi] = load(out / f"chi_{chi:03d}").otoc(probe)
-    conv = dict(bond_convergence(otoc_by_chi, tol))
+    conv = dict(bond_convergence(otoc_by_chi, tol, rel_tol=rel_tol))
     conv.setdefault("probe", probe)
     conv.setdefault("tol", tol)
     atomic_h5(out / CONVERGENCE_FILE, lambda f: _write_convergence_group(f, conv))

@@ -21,7 +21,8 @@ def ballistic_ensemble(R=12, L=30, site=2, v=0.8, t0=1.0, tau=0.6, noise=0.5, t_
     return t, C
 
 
-def fake_ensemble(times, C, site, rho=None, convergence=None, discarded=None):
+def fake_ensemble(times, C, site, rho=None, convergence=None, discarded=None, bond_discarded=None,
+                  bond_entropy=None, description=None):
     """A duck-typed stand-in for a loaded ensemble (the attributes analysis and plots read)."""
     R, n_t, L = C.shape
     if rho is None:
@@ -32,5 +33,7 @@ def fake_ensemble(times, C, site, rho=None, convergence=None, discarded=None):
         times=np.asarray(times), L=L, site=site, w="Z", probes=("X", "Y", "Z"), otoc=lambda v: C,
         weights=None, right_weight=rho, fields=np.zeros((R, L)),
         discarded_weight=np.zeros((R, n_t)) if discarded is None else discarded,
-        max_bond=np.full((R, n_t), 8), realizations=np.arange(R), description={"kind": "synthetic"},
-        engine={"chi": 32, "dt": 0.05, "order": 2, "cutoff": 0.0, "max_step": 0.05}, convergence=convergence)
+        max_bond=np.full((R, n_t), 8), realizations=np.arange(R),
+        description={"kind": "synthetic"} if description is None else description,
+        engine={"chi": 32, "dt": 0.05, "order": 2, "cutoff": 0.0, "max_step": 0.05}, convergence=convergence,
+        bond_discarded=bond_discarded, bond_entropy=bond_entropy)

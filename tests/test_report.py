@@ -21,3 +21,26 @@ def test_summarize_is_json_with_required_keys():
     assert back["engine"]["chi"] == 32 and back["largest_bond"] == 8
     text = report.format_summary(s)
     assert "v_B" in text and "xi" in text and f"{s['butterfly_velocity']['value']:.4g}" in text
+
+
+def test_crossings_carry_intervals_one_per_distance():
+    t, C = ballistic_ensemble(R=6, t_max=30.0)  # far distances are never reached by t = 30
+    conv = tr.bond_convergence({16: C - 2e-3, 32: C})
+    s = json.loads(json.dumps(report.summarize(fake_ensemble(t, C, 2, convergence=conv), n_boot=100)))
+    cr = s["crossings"]
+    n = len(cr["distances"])
+    for key in ("distances", "tstar", "status", "t_low", "t_high", "tstar_boot_std"):  # old and new keys
+        assert len(cr[key]) == n, key
+    for ts, lo, hi, st in zip(cr["tstar"], cr["t_low"], cr["t_high"], cr["status"]):
+        if st == "crossed":
+            assert lo < ts < hi
+        else:
+            assert ts is None and lo is None and hi is None
+    assert "unreached" in cr["status"] and cr["status"].count("crossed") >= 10
+    # the truncation part: the curve moved by 2e-3 between chi, so t* by 2e-3 / slope (slope 1 / (4 tau) at
+    # C = 1/2 for the logistic front of width tau = 0.6 and R realizations spread around it: at least that)
+    trunc = [x for x, st in zip(cr["t_errors"]["truncation"], cr["status"]) if st == "crossed"]
+    assert min(trunc) >= 2e-3 * 4 * 0.6 * 0.99
+    assert s["butterfly_velocity"]["systematic"] is True
+    assert s["butterfly_velocity"]["d_range"] == s["butterfly_velocity"]["r_range"]
+    assert s["warnings"] == []
