@@ -132,10 +132,10 @@ def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "me
         parts = {"statistical": stat}
         parts.update({k: np.where(crossed, _half_widths(getattr(err, k)), np.nan)
                       for k in ("truncation", "trotter", "interpolation")})
-        budget = (f"t_low, t_high: t* minus / plus the sum of the truncation ({err.truncation_source}), Trotter "
-                  f"({err.trotter_source}) and interpolation errors, added in quadrature to the statistical "
-                  f"{int(round(100 * ci))}% bootstrap interval over realizations"
-                  + (" (none: one realization)" if lc.R < 2 else ""))
+        budget = (f"t_low, t_high = t* -/+ (truncation + Trotter + interpolation error), with the "
+                  f"{int(round(100 * ci))}% bootstrap interval over realizations added in quadrature"
+                  + (" (none here: one realization)" if lc.R < 2 else "")
+                  + "; see trust.truncation_error and trust.trotter_error")
     else:
         parts = {"statistical": np.where(crossed, np.maximum(cross.tstar - lc.tstar_low,
                                                              lc.tstar_high - cross.tstar), np.nan)}
@@ -191,53 +191,145 @@ def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "me
     return jsonable(out)
 
 
-def _fmt(v, spec: str = ".4g") -> str:
-    return "-" if v is None else format(v, spec) if isinstance(v, (int, float)) else str(v)
+def _fmt(v, spec: str = ".4f", none: str = "-") -> str:
+    """A number in a fixed format (``none`` for a missing one); other values as text."""
+    if v is None:
+        return none
+    if isinstance(v, bool):
+        return str(v)
+    if isinstance(v, (int, float)):
+        return format(v, spec) if np.isfinite(v) else ("inf" if v > 0 else "-inf")
+    return str(v)
+
+
+def _interval(lo, hi, spec: str = ".4f") -> str:
+    return "-" if lo is None and hi is None else f"[{_fmt(lo, spec)}, {_fmt(hi, spec)}]"
+
+
+def _model_text(d: Mapping[str, Any]) -> str:
+    kind = d.get("model")
+    name = {"xxz": "XXZ chain", "mixed_field_ising": "mixed-field Ising chain"}.get(kind, f"{kind} chain" if kind
+                                                                                     else "chain")
+    W = d.get("disorder_W")
+    if kind == "xxz" and W is not None:
+        name += f", disorder W = {_fmt(W, 'g')}" + (" (clean)" if W == 0 else "")
+    return name
+
+
+def _crossing_lines(d: Mapping[str, Any]) -> list[str]:
+    """One line per distance with its t* and interval; trailing unreached distances on one line."""
+    cr = d.get("crossings") or {}
+    dist, status = cr.get("distances") or [], cr.get("status") or []
+    if not dist:
+        return []
+    n = len(dist)
+    while n > 0 and status[n - 1] == "unreached":
+        n -= 1
+    lines = [f"{'d':>4}{'t*':>10}{'t_low':>10}{'t_high':>10}  status"] if n else []
+    for j in range(n):
+        lines.append(f"{dist[j]:>4}{_fmt(cr['tstar'][j], '.3f'):>10}{_fmt(cr['t_low'][j], '.3f'):>10}"
+                     f"{_fmt(cr['t_high'][j], '.3f'):>10}  {status[j]}")
+    if n < len(dist):
+        t_hi = (d.get("t_range") or [None, None])[1]
+        lines.append(f"{'d = ' if n else 'every distance, d = '}{dist[n]}..{dist[-1]}: unreached within "
+                     f"t <= {_fmt(t_hi, '.3f')}")
+    return lines
 
 
 def format_summary(d: Mapping[str, Any]) -> str:
-    """The summary of :func:`summarize` as a plain-text table."""
+    """The summary of :func:`summarize` as plain text: warnings, the fits, crossing times and error information.
+
+    Numbers have fixed decimal places (parameters 4, times 3, fit quality 3, weights in e-notation with 2);
+    a missing number prints as '-'.
+    """
     lvl = d.get("ci_level", 0.95)
+    pct = f"{int(round(lvl * 100))}%"
+    tr_ = d.get("t_range") or [None, None]
     lines = [
-        f"OTOC light cone: probe V = {d.get('probe')}, W at site {d.get('site')} of L = {d.get('L')}, "
-        f"{d.get('side')} side, {d.get('n_realizations')} realization(s), t in [{_fmt(d['t_range'][0])}, "
-        f"{_fmt(d['t_range'][1])}] (1/J)",
-        f"threshold theta = {_fmt(d.get('threshold'))} on C in [0, 2]; crossing times of the ensemble "
-        f"{d.get('curve')} of C, interpolated in ln t",
-        "",
-        f"{'quantity':<26}{'value':>10}  {f'{int(round(lvl * 100))}% interval':<22}{'range':<15}{'points':>6}"
-        f"{'R^2':>8}{'rms ln':>9}",
+        f"OTOC light cone of operator {d.get('operator') or 'W'} at site {d.get('site')} (probe V = "
+        f"{d.get('probe')}); {_model_text(d)}, L = {d.get('L')}; {d.get('n_realizations')} realization(s); "
+        f"t in [{_fmt(tr_[0], '.3f')}, {_fmt(tr_[1], '.3f')}] (1/J)",
+        f"threshold theta = {_fmt(d.get('threshold'), 'g')} on C in [0, 2]; crossing times t* of the ensemble "
+        f"{d.get('curve')} of C, interpolated in ln t; distances d = |r - {d.get('site')}| on the {d.get('side')} "
+        "side",
     ]
+    for w in d.get("warnings") or []:
+        lines.append(f"WARNING: {w}")
+    lines += ["", f"{'quantity':<26}{'value':>10}  {f'{pct} interval':<22}{'range':<15}{'points':>6}"
+              f"{'R^2':>8}{'rms ln':>9}"]
     for key, name in (("butterfly_velocity", "v_B (sites per 1/J)"), ("log_light_cone", "xi (sites)")):
         f = d.get(key) or {}
-        rr = f.get("r_range") or [None, None]
-        interval = f"[{_fmt(f.get('ci_low'))}, {_fmt(f.get('ci_high'))}]"
-        lines.append(f"{name:<26}{_fmt(f.get('value')):>10}  {interval:<22}{f'd {rr[0]}..{rr[1]}':<15}"
-                     f"{_fmt(f.get('n_points')):>6}{_fmt(f.get('r2'), '.3f'):>8}"
+        rr = f.get("d_range") or f.get("r_range") or [None, None]
+        lines.append(f"{name:<26}{_fmt(f.get('value')):>10}  {_interval(f.get('ci_low'), f.get('ci_high')):<22}"
+                     f"{f'd {rr[0]}..{rr[1]}':<15}{_fmt(f.get('n_points'), 'd'):>6}{_fmt(f.get('r2'), '.3f'):>8}"
                      f"{_fmt(f.get('rms_log_residual'), '.3f'):>9}")
     we = (d.get("front") or {}).get("width_exponent") or {}
-    tr = we.get("t_range") or [None, None]
-    interval = f"[{_fmt(we.get('ci_low'))}, {_fmt(we.get('ci_high'))}]"
-    lines.append(f"{'width exponent beta':<26}{_fmt(we.get('value')):>10}  {interval:<22}"
-                 f"{'t ' + _fmt(tr[0], '.3g') + '..' + _fmt(tr[1], '.3g'):<15}{_fmt(we.get('n_points')):>6}"
+    tw = we.get("t_range") or [None, None]
+    lines.append(f"{'width exponent beta':<26}{_fmt(we.get('value')):>10}  "
+                 f"{_interval(we.get('ci_low'), we.get('ci_high')):<22}"
+                 f"{'t ' + _fmt(tw[0], '.2f') + '..' + _fmt(tw[1], '.2f'):<15}{_fmt(we.get('n_points'), 'd'):>6}"
                  f"{_fmt(we.get('r2'), '.3f'):>8}{'':>9}")
     bv = d.get("butterfly_velocity") or {}
+    lg = d.get("log_light_cone") or {}
     lc = d.get("law_comparison") or {}
+    rr = bv.get("d_range") or bv.get("r_range") or [None, None]
+    if lc.get("smaller"):
+        comparison = (f"smaller rms ln-residual: {lc['smaller']} ({_fmt(lc.get('rms_log_residual_ballistic'), '.3f')}"
+                      f" ballistic, {_fmt(lc.get('rms_log_residual_log'), '.3f')} log)")
+    else:
+        comparison = "the laws are not compared (a fit needs at least 3 trusted crossings)"
+    if "no fit" in str(bv.get("ci_method", "")):
+        how = f"{pct} intervals: none ({bv.get('ci_method')})"
+    elif d.get("n_realizations") == 1:
+        how = (f"{pct} intervals: a single realization, so there is no spread over disorder to bootstrap; the fit "
+               "intervals are least-squares intervals (Student t: how well the law fits)"
+               + (", widened by the systematic errors of t*" if bv.get("systematic") else ""))
+    elif bv.get("n_boot_valid"):
+        how = f"{pct} intervals: {bv.get('ci_method')}"
+    else:
+        how = f"{pct} intervals: least-squares (no bootstrap): {bv.get('ci_method')}"
+    fitted = rr[0] is not None and rr[1] is not None and rr[1] >= rr[0]
     lines += [
         "",
-        f"fits: {bv.get('law')} and {(d.get('log_light_cone') or {}).get('law')}; smaller rms ln-residual: "
-        f"{lc.get('smaller')}",
-        f"distances beyond d_low: {bv.get('n_unreached')} unreached, {bv.get('n_excluded_untrusted')} excluded "
-        f"as untrusted; intervals: {bv.get('ci_method')}",
-        f"trust: {(d.get('trust') or {}).get('criterion')}; trusted fraction {_fmt(d.get('trusted_fraction'), '.3f')}",
-        f"largest discarded weight {_fmt(d.get('largest_discarded_weight'), '.3g')}, largest bond "
-        f"{_fmt(d.get('largest_bond'))}",
+        f"fits: {bv.get('law')} and {lg.get('law')}; {comparison}",
+        (f"fit range d = {rr[0]}..{rr[1]} (d_low = {rr[0]}, the smallest distance fitted); of the distances "
+         f"d >= d_low, " if fitted else f"fit range: none; of the distances d >= d_low = {rr[0]}, ")
+        + f"{_fmt(bv.get('n_unreached'), 'd')} never reach theta within t <= {_fmt(tr_[1], '.3f')} and "
+        f"{_fmt(bv.get('n_excluded_untrusted'), 'd')} are untrusted (not fitted)",
+        how,
     ]
-    dist = d.get("distribution") or {}
-    lines.append(f"bimodality at r = {dist.get('r')} (d = {dist.get('d')}): max "
-                 f"{_fmt(dist.get('max_bimodality'), '.3f')} at t = {_fmt(dist.get('t_at_max'), '.3g')} "
-                 "(Sarle's coefficient, > 5/9 suggests two modes)")
+    cr = d.get("crossings") or {}
+    trust = d.get("trust") or {}
     eng = d.get("engine") or {}
+    if cr.get("t_low") is not None:
+        budget = str(cr.get("error_budget", "")).split("; see ")[0]
+        lines += ["", f"crossing times t* (1/J); {budget}"]
+        if trust.get("truncation_error"):
+            lines.append(f"  truncation error: {trust['truncation_error']}")
+        trot = trust.get("trotter_error")
+        if trot:
+            if str(trot).startswith("not included"):
+                steps = (f"order {_fmt(eng.get('order'), 'd', '?')}, dt = {_fmt(eng.get('dt'), 'g', '?')}, largest "
+                         f"step {_fmt(eng.get('max_step'), 'g', '?')}")
+                trot = f"{trot[:-1]}; {steps})" if str(trot).endswith(")") else f"{trot} ({steps})"
+            lines.append(f"  Trotter error: {trot}")
+        lines += _crossing_lines(d)
+    lines += [
+        "",
+        f"trust of points: {trust.get('criterion')}; trusted fraction {_fmt(d.get('trusted_fraction'), '.3f')}",
+    ]
+    if trust.get("crossing_criterion"):
+        lines.append(f"trust of crossings: {trust['crossing_criterion']}")
+    lines.append(f"largest discarded weight {_fmt(d.get('largest_discarded_weight'), '.2e')}, largest bond "
+                 f"{_fmt(d.get('largest_bond'), 'd')}")
+    dist = d.get("distribution") or {}
+    if dist.get("max_bimodality") is None:
+        lines.append(f"bimodality at r = {dist.get('r')} (d = {dist.get('d')}): not defined (fewer than 4 "
+                     "realizations, or identical values)")
+    else:
+        lines.append(f"bimodality at r = {dist.get('r')} (d = {dist.get('d')}): max "
+                     f"{_fmt(dist.get('max_bimodality'), '.3f')} at t = {_fmt(dist.get('t_at_max'), '.3f')} "
+                     "(Sarle's coefficient, > 5/9 suggests two modes)")
     if eng:
-        lines.append("engine: " + ", ".join(f"{k} = {v}" for k, v in eng.items()))
+        lines.append("engine: " + ", ".join(f"{k} = {_fmt(v, 'g', 'none')}" for k, v in eng.items()))
     return "\n".join(lines)

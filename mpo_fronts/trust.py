@@ -560,14 +560,15 @@ def crossing_errors(times, curve_values, threshold: float, truncation_dC=None, t
                           trotter=parts["trotter"], interpolation=interp, total=total, trusted=trusted,
                           tstar_tol=tstar_tol, truncation_source=truncation_source or
                           ("not included" if truncation_dC is None else "given"),
-                          trotter_source=trotter_source or ("not included" if trotter_dC is None else "given"),
+                          trotter_source=trotter_source or ("not included (no run at a second time step)"
+                                                            if trotter_dC is None else "given"),
                           notes=notes)
 
 
 def trusted_light_cone(times, C, site: int, threshold: float = 0.5, *, convergence: Mapping | None = None,
                        trotter: Mapping | None = None, trusted=None, fallback_dC=None, curve: str = "mean",
                        side: str = "auto", tstar_tol: float = DEFAULT_TSTAR_TOL, tail: str = "last",
-                       **opts) -> LightCone:
+                       fallback_source: str = "", **opts) -> LightCone:
     """:func:`mpo_fronts.analysis.light_cone` with the error budget of every crossing time and trust from it.
 
     Parameters
@@ -586,6 +587,10 @@ def trusted_light_cone(times, C, site: int, threshold: float = 0.5, *, convergen
         :func:`local_discarded`); its largest value over realizations is taken as the error of the curve.
     tstar_tol : float
         See :func:`crossing_errors`.
+    tail : {'last', 'geometric'}
+        See :func:`truncation_change`.
+    fallback_source : str
+        How ``fallback_dC`` was made, in words (recorded in ``errors.truncation_source``).
     **opts
         Passed to :func:`mpo_fronts.analysis.light_cone` (r_range, d_min, n_boot, ci, seed, n_band).
 
@@ -607,7 +612,7 @@ def trusted_light_cone(times, C, site: int, threshold: float = 0.5, *, convergen
     elif fallback_dC is not None:
         f = np.broadcast_to(np.asarray(fallback_dC, dtype=float), a.shape)
         trunc = np.nan_to_num(f[:, :, cols], nan=np.inf).max(axis=0)
-        tsrc = "C shifted by the given truncation estimate (largest over realizations)"
+        tsrc = fallback_source or "C shifted by the given truncation estimate (largest over realizations)"
     else:
         trunc, tsrc = None, ""
     trot, rsrc = None, ""
@@ -640,7 +645,7 @@ def discarded_weight_warnings(discarded_weight, times, threshold: float = LARGE_
         return []
     first = float(t[np.argmax(over.any(axis=0))])
     n = int(over.any(axis=1).sum())
-    return [f"discarded weight reaches {float(np.nanmax(dw)):.3g} (above {threshold:g} from t = {first:g} on, in "
+    return [f"discarded weight reaches {float(np.nanmax(dw)):.3g} (above {threshold:g} from t = {first:.3f} on, in "
             f"{n} of {dw.shape[0]} realization(s)): C is normalised by the weight that remains, so values behind "
             "the front are not meaningful there; those times are excluded from every fit. Raise chi and compare "
             "bond dimensions ('fronts converge')"]
@@ -678,16 +683,21 @@ def ensemble_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, use_tr
         R, n_t, L = C.shape
         if bd is not None and bd.shape == (R, n_t, L - 1):
             dw_loc = local_discarded(bd, ens.times)
+            which = (f"the discarded weight that can have reached the site (per-bond ledger, errors spreading at "
+                     f"{DEFAULT_ERROR_SPEED:g} sites per 1/J)")
         else:
             dw_loc = np.broadcast_to(np.asarray(ens.discarded_weight, dtype=float)[:, :, None], C.shape)
+            which = "the whole-chain discarded weight (this file has no per-bond ledger)"
         fallback = 2.0 * dw_loc / np.maximum(1.0 - dw_loc, 1e-300)  # a truncation's effect on C, normalised
         lc = trusted_light_cone(ens.times, C, site, threshold, trotter=trotter, trusted=mask, fallback_dC=fallback,
-                                tstar_tol=tstar_tol, **opts)
+                                tstar_tol=tstar_tol, fallback_source=f"no convergence study: C shifted by "
+                                f"2 eps / (1 - eps), eps {which}, largest over realizations (a first-order "
+                                "estimate)", **opts)
         crit = (f"every point up to the crossing trusted ({info['source']}), and its truncation plus Trotter "
                 f"error (C shifted by 2 eps / (1 - eps), eps the discarded weight) at most {tstar_tol:g} t*")
     info = dict(info, crossing_criterion=crit, tstar_tol=tstar_tol,
                 truncation_error=lc.errors.truncation_source,
-                trotter_error=lc.errors.trotter_source or "not included (no run at a second time step)")
+                trotter_error=lc.errors.trotter_source)
     lc.trust, lc.probe = info, probe
     return lc
 

@@ -44,3 +44,26 @@ def test_crossings_carry_intervals_one_per_distance():
     assert s["butterfly_velocity"]["systematic"] is True
     assert s["butterfly_velocity"]["d_range"] == s["butterfly_velocity"]["r_range"]
     assert s["warnings"] == []
+
+
+def test_text_summary_first_screen():
+    import re
+
+    t, C = ballistic_ensemble(R=1, L=20, site=8, t_max=20.0)
+    desc = {"model": {"kind": "xxz", "L": 20, "W": 1.0}}
+    one = report.summarize(fake_ensemble(t, C, 8, description=desc), n_boot=50)
+    text = report.format_summary(one)
+    assert "disorder W = 1" in text and "operator Z at site 8" in text
+    assert "single realization" in text and "least-squares" in text  # says which interval it is
+    assert "d_low = 1" in text  # the phrase is defined where it is used
+    assert re.search(r"v_B \(sites per 1/J\)\s+\d+\.\d{4}\s+\[\d+\.\d{4}, \d+\.\d{4}\]", text)  # fixed decimals
+    assert one["operator"] == "Z" and one["disorder_W"] == 1.0
+    # nothing crosses: no fit, no law comparison, and still no raw None anywhere in the text
+    none = report.format_summary(report.summarize(fake_ensemble(t, 0.1 * C, 8, description=desc), n_boot=20))
+    assert "not compared" in none and "fit range: none" in none
+    t2, C2 = ballistic_ensemble(R=6)
+    conv = tr.bond_convergence({16: C2 - 1e-3, 32: C2})
+    many = report.format_summary(report.summarize(fake_ensemble(t2, C2, 2, convergence=conv), n_boot=50))
+    assert "bootstrap over realizations" in many and "t_low" in many
+    for txt in (text, none, many):
+        assert "None" not in txt and "nan" not in txt
