@@ -936,8 +936,9 @@ def light_cone(times, C, site: int, threshold: float = 0.5, *, trusted=None, cur
         if tb is None:
             n_draw = n_boot if n_boot > 0 else 500
             tb = np.where(use[None, :], np.broadcast_to(ts, (n_draw, d.size)), np.nan)
-            method = (f"no statistical draws (one realization or n_boot = 0): {n_draw} draws of every t* within its systematic interval (truncation, "
-                      f"Trotter), percentile interval, seed = {seed}, combined in quadrature with the "
+            method = (f"no statistical draws (one realization or n_boot = 0): {n_draw} draws of every t* within "
+                      f"its systematic interval (truncation, Trotter), percentile interval, seed = {seed}, "
+                      f"combined in quadrature with the "
                       f"least-squares interval (Student t), which measures the misfit of the law")
         else:
             method += "; every t* also shifted within its systematic interval (truncation, Trotter) in each draw"

@@ -368,8 +368,9 @@ def trust_mask(ens, use_trust: bool = True, max_discarded: float = DEFAULT_MAX_D
             mask = trust_from_bonds(bd, ens.times, int(ens.site), max_discarded, _ensemble_array(ens, "bond_entropy"),
                                     chi, entropy_fraction)
             info.update(source="bond_discarded",
-                        criterion=f"discarded weight that can have reached the site (bonds within {DEFAULT_ERROR_SPEED:g} "
-                                  f"sites per 1/J of it since the loss) <= {float(max_discarded):g}"
+                        criterion=f"discarded weight that can have reached the site (bonds within "
+                                  f"{DEFAULT_ERROR_SPEED:g} sites per 1/J of it since the loss) <= "
+                                  f"{float(max_discarded):g}"
                                   + (f", bond entropy below {entropy_fraction:g} ln chi" if chi else "")
                                   + " (no convergence study; local per-bond ledger)")
         else:

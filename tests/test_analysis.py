@@ -213,7 +213,8 @@ def test_bad_arguments_name_themselves():
 def test_clean_xx_chain_front_moves_at_group_velocity():
     """Clean XX chain (delta = 0, W = 0), W = Z at the left end: a small-threshold contour moves at v = J.
 
-    Maximum group velocity v = J in this convention: hopping w = J/2, band -J cos k, v = max |dE/dk| = J (derived). The crossing times of
+    Maximum group velocity v = J in this convention: hopping w = J/2, band -J cos k, v = max |dE/dk| = J
+    (derived). The crossing times of
     the engine run are also checked against the free-fermion closed form C = 4|G|^2 (1 - |G|^2) with
     G = exp(-i h_sp t) from scipy.linalg.expm (free fermions by Jordan-Wigner; Lin & Motrunich, PRB 98, 134305
     (2018)).
