@@ -815,6 +815,60 @@ def _systematic_draws(tstar: np.ndarray, sys: np.ndarray, n: int, rng: np.random
     return tstar[None, :] - sys[0][None, :] + u * (sys[0] + sys[1])[None, :]
 
 
+def _distrust_crossings(cross: Crossings, crossing_trusted, sys: np.ndarray, given: bool) -> np.ndarray:
+    """Mark crossings UNTRUSTED where ``crossing_trusted`` is False or (when ``given``) the systematic error is
+    unknown (non-finite); returns the systematic errors with those entries set to 0."""
+    n_d = cross.status.shape[-1]
+    bad = np.zeros(n_d, bool)
+    if crossing_trusted is not None:
+        ct = np.asarray(crossing_trusted, dtype=bool).reshape(-1)
+        if ct.size != n_d:
+            raise InputError(f"crossing_trusted must have one entry per distance on the side used ({n_d}), "
+                             f"got {ct.size}", arg="crossing_trusted")
+        bad |= ~ct
+    if given:
+        bad |= ~np.isfinite(sys).all(axis=0)
+    bad &= cross.status == CROSSED
+    cross.status = np.where(bad, UNTRUSTED, cross.status).astype(np.int8)
+    cross.tstar = np.where(bad, np.nan, cross.tstar)
+    return np.where(np.isfinite(sys), sys, 0.0)
+
+
+def _tstar_intervals(cross: Crossings, tb: np.ndarray | None, sys: np.ndarray, ci: float
+                     ) -> tuple[np.ndarray, np.ndarray]:
+    """[t_low, t_high] of each crossed t*: bootstrap percentiles (if any) and systematic errors in quadrature."""
+    alpha = 100 * (1 - ci) / 2
+    ts = cross.tstar
+    if tb is not None:
+        with warnings.catch_warnings():  # columns without any crossing: 'All-NaN slice'
+            warnings.simplefilter("ignore", RuntimeWarning)
+            q_lo, q_hi = np.nanpercentile(np.where(np.isfinite(tb), tb, np.nan), [alpha, 100 - alpha], axis=0)
+        s_lo, s_hi = np.maximum(ts - q_lo, 0.0), np.maximum(q_hi - ts, 0.0)
+    else:
+        s_lo = s_hi = np.zeros(ts.size)
+    crossed = cross.status == CROSSED
+    with np.errstate(invalid="ignore"):
+        t_low = np.where(crossed, ts - np.sqrt(np.nan_to_num(s_lo) ** 2 + sys[0] ** 2), np.nan)
+        t_high = np.where(crossed, ts + np.sqrt(np.nan_to_num(s_hi) ** 2 + sys[1] ** 2), np.nan)
+    return t_low, t_high
+
+
+def _systematic_shifts(ts: np.ndarray, tb: np.ndarray | None, use: np.ndarray, sys: np.ndarray, n_boot: int,
+                       seed: int, method: str) -> tuple[np.ndarray, str]:
+    """Draws of t* with every crossing shifted uniformly within its systematic interval (on top of the
+    bootstrap draws ``tb``, or of t* itself when there are none), and the words for the interval method."""
+    rng = np.random.default_rng([seed, 1])
+    if tb is None:
+        n_draw = n_boot if n_boot > 0 else 500
+        tb = np.where(use[None, :], np.broadcast_to(ts, (n_draw, ts.size)), np.nan)
+        method = (f"no statistical draws (one realization or n_boot = 0): {n_draw} draws of every t* within its "
+                  f"systematic interval (truncation, Trotter), percentile interval, seed = {seed}, combined in "
+                  "quadrature with the least-squares interval (Student t), which measures the misfit of the law")
+    else:
+        method += "; every t* also shifted within its systematic interval (truncation, Trotter) in each draw"
+    return tb - ts[None, :] + _systematic_draws(ts, sys, tb.shape[0], rng), method
+
+
 def light_cone(times, C, site: int, threshold: float = 0.5, *, trusted=None, curve: str = "mean",
                side: str = "auto", r_range: tuple[int, int] | None = None, d_min: int = 1, n_boot: int = 500,
                ci: float = 0.95, seed: int = 0, n_band: int = 60, tstar_sys=None,
@@ -884,19 +938,7 @@ def light_cone(times, C, site: int, threshold: float = 0.5, *, trusted=None, cur
     centre = ensemble_curve(Cs, curve)
     ok_c = ok_s.all(axis=0)
     cross = crossing_times(t, centre, theta, ok_c)
-    if crossing_trusted is not None:
-        ct = np.asarray(crossing_trusted, dtype=bool).reshape(-1)
-        if ct.size != d.size:
-            raise InputError(f"crossing_trusted must have one entry per distance on the side used ({d.size}), "
-                             f"got {ct.size}", arg="crossing_trusted")
-        bad = ~ct & (cross.status == CROSSED)
-        cross.status = np.where(bad, UNTRUSTED, cross.status).astype(np.int8)
-        cross.tstar = np.where(bad, np.nan, cross.tstar)
-    if tstar_sys is not None:  # an unknown systematic error makes the crossing unusable
-        unknown = ~np.isfinite(sys).all(axis=0) & (cross.status == CROSSED)
-        cross.status = np.where(unknown, UNTRUSTED, cross.status).astype(np.int8)
-        cross.tstar = np.where(unknown, np.nan, cross.tstar)
-        sys = np.where(np.isfinite(sys), sys, 0.0)
+    sys = _distrust_crossings(cross, crossing_trusted, sys, tstar_sys is not None)
     real = crossing_times(t, Cs, theta, ok_s)
 
     # 2. the fit range and what it leaves out
@@ -914,35 +956,13 @@ def light_cone(times, C, site: int, threshold: float = 0.5, *, trusted=None, cur
     tstar_boot_std = _column_std(tb, d.size)
 
     # 4. per-distance intervals of t*: statistical percentiles, widened by the systematic errors
-    alpha = 100 * (1 - ci) / 2
-    ts = cross.tstar
-    if tb is not None:
-        with warnings.catch_warnings():  # columns without any crossing: 'All-NaN slice'
-            warnings.simplefilter("ignore", RuntimeWarning)
-            q_lo, q_hi = np.nanpercentile(np.where(np.isfinite(tb), tb, np.nan), [alpha, 100 - alpha], axis=0)
-        s_lo, s_hi = np.maximum(ts - q_lo, 0.0), np.maximum(q_hi - ts, 0.0)
-    else:
-        s_lo = s_hi = np.zeros(d.size)
-    crossed = cross.status == CROSSED
-    with np.errstate(invalid="ignore"):
-        t_low = np.where(crossed, ts - np.sqrt(np.nan_to_num(s_lo) ** 2 + sys[0] ** 2), np.nan)
-        t_high = np.where(crossed, ts + np.sqrt(np.nan_to_num(s_hi) ** 2 + sys[1] ** 2), np.nan)
+    t_low, t_high = _tstar_intervals(cross, tb, sys, ci)
 
     # 5. systematic errors enter the fits as uniform shifts in every draw
     has_sys = tstar_sys is not None and bool(np.any(sys[:, use] > 0))
     sys_only = has_sys and tb is None  # no statistical draws: the misfit of the law enters by least squares
     if has_sys:
-        rng = np.random.default_rng([seed, 1])
-        if tb is None:
-            n_draw = n_boot if n_boot > 0 else 500
-            tb = np.where(use[None, :], np.broadcast_to(ts, (n_draw, d.size)), np.nan)
-            method = (f"no statistical draws (one realization or n_boot = 0): {n_draw} draws of every t* within "
-                      f"its systematic interval (truncation, Trotter), percentile interval, seed = {seed}, "
-                      f"combined in quadrature with the "
-                      f"least-squares interval (Student t), which measures the misfit of the law")
-        else:
-            method += "; every t* also shifted within its systematic interval (truncation, Trotter) in each draw"
-        tb = tb - ts[None, :] + _systematic_draws(ts, sys, tb.shape[0], rng)
+        tb, method = _systematic_shifts(cross.tstar, tb, use, sys, n_boot, seed, method)
 
     d_band = np.linspace(lo, hi, n_band) if hi >= lo else np.empty(0)
     fits = {law: _fit_law(law, d, use, cross.tstar, tb, d_band, lo, hi, ci, counts, method, has_sys, sys_only)
