@@ -16,6 +16,7 @@ from pathlib import Path
 from typing import Sequence
 
 from .errors import FrontsError, InputError, UserError, require
+from .stopping import RunStopped
 
 __all__ = ["main", "build_parser"]
 
@@ -273,7 +274,7 @@ def _cmd_run(args) -> int:
         raise InputError("give either --workers N (local processes) or --dask SPEC (Dask), not both")
     rep = run_ensemble(desc, args.out, workers=args.workers, dask=args.dask, shard=args.shard,
                        realizations=args.realizations, wait=args.wait, progress=args.progress,
-                       log_interval=args.log_interval)
+                       log_interval=args.log_interval, exit_on_second_signal=True)
     _say(f"run directory: {rep.path}",
          f"computed now: {len(rep.computed)}; already done: {len(rep.existing)}; selected: {len(rep.selected)}"
          f"; elapsed {_fmt_s(rep.elapsed)}")
@@ -546,6 +547,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     try:
         return _COMMANDS[args.command](args)
+    except RunStopped as exc:
+        print(_paragraph(f"fronts {args.command}: {exc}"), file=sys.stderr)
+        return exc.exit_code
     except UserError as exc:
         flag = _FLAGS.get(getattr(exc, "arg", None) or "")
         where = f" (command-line option {flag})" if flag else ""

@@ -38,6 +38,7 @@ from .config import Realization, RunDescription, parse_description
 from .driver import Observer
 from .errors import FrontsError, InputError, UserError, require
 from .settings import EvolutionSettings
+from . import stopping
 from .store import ClaimInfo, RunDirectory
 
 __all__ = ["run_ensemble", "compute_realization", "evolve_realization", "shard_indices", "parse_shard",
@@ -179,6 +180,14 @@ def evolve_realization(chain, *, w: str, site: int, times: Sequence[float], sett
     return result
 
 
+class _Stop(Exception):
+    """Raised by the checkpoint observer when the run is asked to stop (after writing the checkpoint)."""
+
+    def __init__(self, t: float | None):
+        super().__init__(t)
+        self.t = t
+
+
 class _Checkpoints(Observer):
     """After every block: heartbeat of the claim, progress, and a checkpoint every ``interval`` seconds."""
 
@@ -191,6 +200,10 @@ class _Checkpoints(Observer):
         self.claim.progress(engine.t)
         if self.progress is not None:
             self.progress(self.k, engine.t)
+        if stopping.requested():
+            if self.interval is not None:
+                self.save(engine, evolution)
+            raise _Stop(engine.t if self.interval is not None else None)
         if self.interval is not None and time.monotonic() - self.last >= self.interval:
             self.save(engine, evolution)
 
@@ -236,6 +249,9 @@ def _compute_realization(run_dir, description, k, run_id, progress) -> dict:
     if not (Path(run_dir) / RUN_FILE).is_file():
         raise UserError(f"the worker on {socket.gethostname()} cannot see the run directory {run_dir}; Dask "
                         "workers on other machines need it on a shared file system, at the same path")
+    stopping.watch(stopping.stop_file(run_dir, run_id))
+    if stopping.requested():  # queued before the stop: do not start
+        return {"k": k, "status": "cancelled"}
     desc = parse_description(description)
     rd = RunDirectory(run_dir, desc)
     claim = rd.claim(k, run_id)
@@ -249,8 +265,12 @@ def _compute_realization(run_dir, description, k, run_id, progress) -> dict:
         real = desc.realization(k)
         ckpt = rd.load_checkpoint(k) if opts["checkpoints"] else None
         saver = _Checkpoints(rd, k, claim, progress, opts["checkpoint_interval"] if opts["checkpoints"] else None)
-        result = evolve_realization(real.chain, w=desc.w, site=desc.site, times=desc.times, settings=desc.settings,
-                                    probes=desc.probes, bits=real.bits, resume=ckpt, observers=[saver])
+        try:
+            result = evolve_realization(real.chain, w=desc.w, site=desc.site, times=desc.times,
+                                        settings=desc.settings, probes=desc.probes, bits=real.bits, resume=ckpt,
+                                        observers=[saver])
+        except _Stop as stop:
+            return {"k": k, "status": "stopped", "t": stop.t}
         rd.write_result(k, dict(_realization_payload(desc, real, result), run_id=run_id))
         rd.remove_checkpoint(k)
     finally:
@@ -332,6 +352,8 @@ class RunReport:
     existing: list[int] = field(default_factory=list)
     busy: dict[int, dict] = field(default_factory=dict)
     resumed: dict[int, float] = field(default_factory=dict)
+    stopped: dict[int, float | None] = field(default_factory=dict)
+    cancelled: list[int] = field(default_factory=list)
     elapsed: float = 0.0
 
     @property
@@ -346,8 +368,9 @@ def _make_dask_client(spec: str):
     import logging
 
     if kind == "local":
-        cluster = distributed.LocalCluster(n_workers=arg, threads_per_worker=1, processes=True,
-                                           dashboard_address=":0", silence_logs=logging.ERROR)
+        with _single_thread_env(), stopping.ignored():  # the workers leave stop signals to this process
+            cluster = distributed.LocalCluster(n_workers=arg, threads_per_worker=1, processes=True,
+                                               dashboard_address=":0", silence_logs=logging.ERROR)
         return distributed.Client(cluster), cluster
     try:
         return distributed.Client(arg, timeout="15s"), None
@@ -359,7 +382,7 @@ def _make_dask_client(spec: str):
 def run_ensemble(description: RunDescription, out, *, workers: int = 1, dask: str | None = None,
                  shard: tuple[int, int] | None = None, realizations: Sequence[int] | None = None,
                  wait: bool = False, progress: str = "auto", log_interval: float = 30.0, stream=None,
-                 retries: int = 2, poll: float = 0.25) -> RunReport:
+                 retries: int = 2, poll: float = 0.25, exit_on_second_signal: bool = False) -> RunReport:
     """Compute the missing realizations of a description into a run directory.
 
     Parameters
@@ -383,10 +406,19 @@ def run_ensemble(description: RunDescription, out, *, workers: int = 1, dask: st
         Bar on a terminal, periodic log lines (every ``log_interval`` s) otherwise.
     retries : int
         Dask retries of a task that raised.
+    exit_on_second_signal : bool
+        What a second SIGINT/SIGTERM does: exit the process at once (the command line) or raise
+        KeyboardInterrupt (default). The first one always stops cleanly (:mod:`mpo_fronts.stopping`).
 
     Returns
     -------
     RunReport
+
+    Raises
+    ------
+    mpo_fronts.stopping.RunStopped
+        After a clean stop on SIGINT or SIGTERM (running realizations checkpointed, queued ones not started);
+        its message gives the true count of finished realizations.
     """
     if not isinstance(description, RunDescription):
         raise InputError("description must be a RunDescription (use mpo_fronts.config.read_description)")
@@ -415,17 +447,21 @@ def run_ensemble(description: RunDescription, out, *, workers: int = 1, dask: st
         raise
     drv = _Driver(rd, selected, progress, log_interval, stream if stream is not None else sys.stderr, poll)
     try:
-        if client is not None:
-            drv.run_dask(client, retries, wait)
-        elif workers > 1:
-            drv.run_processes(workers, wait)
-        else:
-            drv.run_serial(wait)
+        with stopping.handlers(stopping.stop_file(rd.path, drv.run_id), exit_at_once=exit_on_second_signal,
+                               worker_pids=drv.local_worker_pids):
+            if client is not None:
+                drv.run_dask(client, retries, wait)
+            elif workers > 1:
+                drv.run_processes(workers, wait)
+            else:
+                drv.run_serial(wait)
     finally:
         drv.bar.close()
     drv.report.computed.sort()
     drv.report.existing.sort()
     drv.report.elapsed = time.monotonic() - t0
+    if stopping.signalled() is not None:
+        raise stopping.RunStopped(stopping.signalled(), drv.stop_message())
     return drv.report
 
 
@@ -449,7 +485,11 @@ class _Driver:
     def on_result(self, res: dict) -> None:
         k, status = res["k"], res["status"]
         self.running.pop(k, None)
-        if status == "busy":
+        if status == "stopped":
+            self.report.stopped[k] = res.get("t")
+        elif status == "cancelled":
+            self.report.cancelled.append(k)
+        elif status == "busy":
             self.report.busy[k] = res["owner"]
         else:
             self.report.busy.pop(k, None)
@@ -471,17 +511,46 @@ class _Driver:
                     self.running.pop(k, None)
         self.bar.update(running=self.running)
 
+    def local_worker_pids(self) -> list[int]:
+        """Processes on this host that hold this run's claims (killed on a second signal)."""
+        import socket
+
+        host = socket.gethostname()
+        return [info.pid for info in self.rd.claim_infos().values()
+                if info.run_id == self.run_id and info.host == host]
+
+    def stop_message(self) -> str:
+        """The true state after a clean stop, as ``fronts status`` reports it."""
+        n_done, n_total = len(self.rd.done()), self.rd.description.realizations
+        stopped = ", ".join(f"r{k}" + (f" (t={t:.3g})" if t is not None else "")
+                            for k, t in sorted(self.report.stopped.items())[:10])
+        parts = [f"stopped by {stopping.signal_name(stopping.signalled())}: {n_done} of {n_total} realizations "
+                 f"done ({len(self.report.computed)} in this run)"]
+        if self.report.stopped:
+            parts.append(f"checkpointed on the way out: {stopped}" if self.rd.description.run_options["checkpoints"]
+                         else f"stopped without checkpoints (run.checkpoints = false): {stopped}")
+        parts.append("run the same command again to continue")
+        return "; ".join(parts)
+
     def rounds(self, one_round: Callable[[list[int]], None], wait: bool, interval: float = 2.0) -> None:
         """One round over everything to do; with ``wait``, retry what other live runs hold until done."""
         one_round(self.todo)
-        while wait and self.report.busy:
+        while wait and self.report.busy and not stopping.requested():
             time.sleep(interval)
             one_round(sorted(self.report.busy))
 
     def collect(self, futures: dict, on_error: Callable[[BaseException], BaseException] | None = None) -> None:
+        cancelled = False
         while futures:
+            if not cancelled and stopping.requested():
+                cancelled = True  # queued tasks that never started; started ones return at the stop file
+                for f in list(futures):
+                    if f.cancel():
+                        futures.pop(f)
             for f in [f for f in futures if f.done()]:
                 futures.pop(f)
+                if f.cancelled():
+                    continue
                 try:
                     res = f.result()
                 except BaseException as exc:  # noqa: BLE001 - translated or re-raised
@@ -499,6 +568,8 @@ class _Driver:
 
         def one_round(ks):
             for k in ks:
+                if stopping.requested():
+                    break
                 self.on_result(compute_realization(str(self.rd.path), self.desc_d, k, self.run_id, progress=prog))
 
         self.rounds(one_round, wait)
@@ -514,12 +585,13 @@ class _Driver:
                                   "are kept: run the same command again to continue")
             return exc
 
-        with _single_thread_env():
+        with _single_thread_env(), stopping.ignored():
             pool = ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn"),
                                        initializer=_init_worker)
         try:
             def one_round(ks):
-                with _single_thread_env():  # children are started on demand, at submit
+                # children are started on demand, at submit: one BLAS thread, stop signals left to this process
+                with _single_thread_env(), stopping.ignored():
                     futures = {pool.submit(compute_realization, str(self.rd.path), self.desc_d, k, self.run_id): k
                                for k in ks}
                 self.collect(futures, translate)

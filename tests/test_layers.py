@@ -19,15 +19,15 @@ LAYERS = [
     "readout", "driver", "references", "exact",    # measurements, the one evolution loop, exact references
     "config",                                      # run descriptions
     "atomic", "rundir", "results", "store",        # the on-disk layout
-    "ensemble",                                    # executors
+    "stopping", "ensemble",                        # signals; executors
     "analysis", "growth", "trust",                 # statistics, fits, trust selection
     "workflows", "report",                         # check and convergence study; summaries
     "plots", "cli", "__init__",                    # figures, command line, package namespace
 ]
 KERNELS = ("pauli", "schedules", "truncation", "settings", "evolve", "u1", "readout", "driver", "exact",
            "references")
-RUNNER = ("config", "atomic", "rundir", "results", "store", "ensemble", "workflows", "analysis", "growth",
-          "trust", "report", "plots", "cli", "__init__")
+RUNNER = ("config", "atomic", "rundir", "results", "store", "stopping", "ensemble", "workflows", "analysis",
+          "growth", "trust", "report", "plots", "cli", "__init__")
 
 
 def _modules():
