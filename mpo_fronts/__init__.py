@@ -20,6 +20,28 @@ def exact_otoc(*args, **kwargs):
     return _exact_otoc(*args, **kwargs)
 
 
+def typicality_otoc(*args, **kwargs):
+    """OTOCs by dynamical typicality with sparse Krylov evolution (L up to about 24); see
+    :func:`mpo_fronts.exact.typicality_otoc`."""
+    from .exact import typicality_otoc as _typicality_otoc
+
+    return _typicality_otoc(*args, **kwargs)
+
+
+def eigenstate_otoc(*args, **kwargs):
+    """Eigenstate-resolved OTOCs (dense, L <= 12); see :func:`mpo_fronts.exact.eigenstate_otoc`."""
+    from .exact import eigenstate_otoc as _eigenstate_otoc
+
+    return _eigenstate_otoc(*args, **kwargs)
+
+
+def free_fermion_otoc(*args, **kwargs):
+    """Closed-form OTOCs of the XX chain (free fermions); see :func:`mpo_fronts.exact.free_fermion_otoc`."""
+    from .exact import free_fermion_otoc as _free_fermion_otoc
+
+    return _free_fermion_otoc(*args, **kwargs)
+
+
 def load(path):
     """Load a run directory or merged file; see :func:`mpo_fronts.store.load`."""
     from .store import load as _load
@@ -27,6 +49,7 @@ def load(path):
     return _load(path)
 
 
-__all__ = ["xxz_chain", "mixed_field_ising_chain", "nn_chain", "Chain", "evolve_otoc", "exact_otoc", "load",
-           "OtocResult", "EvolutionSettings", "OperatorTEBD", "step_plan", "time_grid", "FrontsError", "UserError", "InputError",
-           "ConfigError", "RunDirectoryError", "CONVENTIONS", "__version__"]
+__all__ = ["xxz_chain", "mixed_field_ising_chain", "nn_chain", "Chain", "evolve_otoc", "exact_otoc",
+           "typicality_otoc", "eigenstate_otoc", "free_fermion_otoc", "load", "OtocResult", "EvolutionSettings",
+           "OperatorTEBD", "step_plan", "time_grid", "FrontsError", "UserError", "InputError", "ConfigError",
+           "RunDirectoryError", "CONVENTIONS", "__version__"]

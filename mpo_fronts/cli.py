@@ -199,7 +199,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--dt", type=_positive_float, default=None,
                    help="Trotter step for every chi (default: engine.dt of the description)")
     p.add_argument("--probe", type=_probe, default=None,
-                   help="probe V whose C is compared (default: the first of operators.v)")
+                   help="probe V whose C is compared (default: Z if stored, else the first of operators.v)")
     p.add_argument("--tol", type=_positive_float, default=1e-6,
                    help="absolute part of the tolerance: a point (t, r) counts as trusted when C changed by less "
                         "than TOL + REL_TOL * C between the two largest chi (default: 1e-06)")
@@ -258,11 +258,32 @@ def _fmt_s(seconds: float) -> str:
     return f"{s // 3600}h{s // 60 % 60:02d}m{s % 60:02d}s" if s >= 3600 else f"{s // 60}m{s % 60:02d}s"
 
 
+def _check_output(path, option: str) -> None:
+    """Refuse, before any work, an output path that cannot be created: the first existing folder above it must
+    be a folder this process can write in (missing folders below it are created when needed)."""
+    import os
+
+    p = Path(path).absolute()
+    probe = p
+    while not probe.exists() and probe.parent != probe:
+        probe = probe.parent
+    if probe == p and p.is_dir():
+        probe_dir = p
+    elif probe != p and not probe.is_dir():
+        raise InputError(f"{option} {path}: cannot be created, {probe} is a file, not a folder; choose another "
+                         f"{option}")
+    else:
+        probe_dir = probe if probe.is_dir() else probe.parent
+    if not os.access(probe_dir, os.W_OK | os.X_OK):
+        raise InputError(f"{option} {path}: no permission to write in {probe_dir}; choose another {option}")
+
+
 def _cmd_run(args) -> int:
     from .config import read_description
     from .ensemble import run_ensemble
 
     desc = read_description(args.description)
+    _check_output(args.out, "--out")
     changes = {}
     if args.checkpoint_interval is not None:
         changes["run__checkpoint_interval"] = args.checkpoint_interval
@@ -342,6 +363,7 @@ def _status_one(directory, as_json: bool) -> int:
 def _cmd_merge(args) -> int:
     from .store import merge
 
+    _check_output(args.output, "--output")
     path, ens = merge(args.sources, args.output, overwrite=args.force)
     _say(f"merged {len(ens)} realization(s) into {path}")
     if ens.missing:
@@ -354,11 +376,16 @@ def _cmd_check(args) -> int:
     from .config import read_description
     from .workflows import check_against_exact
 
+    from .exact import MAX_DENSE_L
+
     desc = read_description(args.description)
+    if args.L > MAX_DENSE_L:
+        raise InputError(f"--L = {args.L}: the exact check uses dense evolution (memory and time grow as 4^L), "
+                         f"so --L must be at most {MAX_DENSE_L}; for larger chains compare with "
+                         "mpo_fronts.typicality_otoc (sparse, L up to about 24)")
     if args.L > desc.L:
-        raise InputError(f"--L = {args.L} exceeds model.L = {desc.L} of the description")
-    if args.L > 12:
-        raise InputError(f"--L = {args.L}: the exact check uses dense evolution, so --L must be at most 12")
+        raise InputError(f"--L = {args.L} exceeds model.L = {desc.L}: the check runs the description's model "
+                         f"on a shorter chain; give --L between 2 and {min(desc.L, MAX_DENSE_L)}")
     res = check_against_exact(desc, L=args.L, realizations=args.realizations,
                               progress=None if args.json else (lambda msg: print("  " + msg, flush=True)))
     ok = res.max_deviation <= args.tol
@@ -392,12 +419,13 @@ def _cmd_converge(args) -> int:
     from .workflows import converge
 
     desc = read_description(args.description)
+    _check_output(args.out, "--out")
     if args.dask is not None and args.workers > 1:
         raise InputError("give either --workers N (local processes) or --dask SPEC (Dask), not both")
     _need_analysis("bond_convergence", "trust")
     conv = converge(desc, args.chi, args.out, dt=args.dt, probe=args.probe, tol=args.tol, rel_tol=args.rel_tol,
                     workers=args.workers,
-                    dask=args.dask, progress=args.progress, log_interval=args.log_interval)
+                    dask=args.dask, progress=args.progress, log_interval=args.log_interval, exit_on_second_signal=True)
     import numpy as np
 
     trusted = np.asarray(conv.get("trusted"))
@@ -425,9 +453,9 @@ def _need_analysis(name: str, module: str = "analysis"):
 
 
 def _default_probe(ens, probe):
-    if probe is not None:
-        return probe
-    return "Z" if "Z" in ens.probes else ens.probes[0]
+    from .conventions import default_probe
+
+    return probe if probe is not None else default_probe(ens.probes)
 
 
 def _load(path):
@@ -454,6 +482,7 @@ def _cmd_summary(args) -> int:
 def _cmd_plot(args) -> int:
     write_figures = _need_analysis("write_figures", "plots")
     ens = _load(args.directory)
+    _check_output(args.out, "--out")
     only = args.only.split(",") if args.only and "," in args.only else args.only
     paths = write_figures(ens, args.out, only=only, threshold=args.threshold, probe=_default_probe(ens, args.probe))
     _say(f"wrote {len(paths)} file(s) to {args.out}:", *(f"  {p}" for p in paths))
@@ -494,6 +523,7 @@ def _cmd_demo(args) -> int:
     write_figures = _need_analysis("write_figures", "plots")
     require("matplotlib", "plot")  # the figures come last: fail before any work, not after it
     out = Path(args.out)
+    _check_output(out, "--out")
     descs = {n: read_description(data / f"demo_{n}.toml") for n in _DEMOS}
     for n, d in descs.items():  # validate every target before any work
         for chi in _DEMO_CHIS:
@@ -503,11 +533,12 @@ def _cmd_demo(args) -> int:
         _say(f"[demo] {n}: {d.realizations} realizations of the XXZ chain, L = {d.L}, W = "
              f"{d['model'].get('W')}, t up to {d.times[-1]:g}, chi = {', '.join(map(str, _DEMO_CHIS))} "
              "(invented demo parameters)")
-        converge(d, _DEMO_CHIS, out / "runs" / n, tol=_DEMO_TOL, workers=args.workers, progress=args.progress)
+        converge(d, _DEMO_CHIS, out / "runs" / n, tol=_DEMO_TOL, workers=args.workers, progress=args.progress,
+                 exit_on_second_signal=True)
     for n in _DEMOS:
         ens = _load(out / "runs" / n)
         theta = _DEMO_THRESHOLDS[n]
-        probe = descs[n].probes[0]  # the probe of the convergence study, so that the trust map applies as is
+        probe = _default_probe(ens, None)  # the probe of the convergence study, so that its trust map applies
         s = summarize(ens, threshold=theta, probe=probe)
         (out / "summary").mkdir(parents=True, exist_ok=True)
         (out / "summary" / f"{n}.json").write_text(json.dumps(s, indent=1) + "\n")
@@ -558,11 +589,15 @@ def main(argv: Sequence[str] | None = None) -> int:
     except FrontsError as exc:
         print(_paragraph(f"fronts {args.command}: {exc}"), file=sys.stderr)
         return 1
-    except BrokenPipeError:  # output piped into head & co.
-        import os
+    except OSError as exc:  # a file system refusal the checks above did not foresee: one line, no traceback
+        if isinstance(exc, BrokenPipeError):  # output piped into head & co.
+            import os
 
-        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
-        return 0
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+            return 0
+        what = f" ({exc.filename})" if getattr(exc, "filename", None) else ""
+        print(_paragraph(f"fronts {args.command}: error: {exc.strerror or exc}{what}"), file=sys.stderr)
+        return EXIT_USER_ERROR
     except KeyboardInterrupt:
         print(f"fronts {args.command}: interrupted; finished realizations and checkpoints are kept, run the same "
               "command again to continue", file=sys.stderr)

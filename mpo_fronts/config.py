@@ -366,10 +366,13 @@ def parse_description(raw: Mapping, source: str | None = None) -> "RunDescriptio
 
 
 def read_description(path) -> "RunDescription":
-    """Read and validate a TOML run description file (or a JSON file written by :meth:`RunDescription.to_dict`)."""
+    """Read and validate a run description: a TOML file, a JSON file written by :meth:`RunDescription.to_dict`,
+    the ``run.json`` of a run directory, or the run directory itself (its stored description)."""
     import tomllib
 
     p = Path(path)
+    if p.is_dir() and (p / "run.json").is_file():  # a run directory: its stored description
+        p = p / "run.json"
     if not p.is_file():
         raise ConfigError("", f"{p}: no such run description file")
     try:
@@ -381,6 +384,9 @@ def read_description(path) -> "RunDescription":
             raw = json.loads(text)
         except json.JSONDecodeError as exc:
             raise ConfigError("", f"{p}: not valid JSON ({exc})") from None
+        if isinstance(raw, dict) and str(raw.get("format", "")).startswith("mpo_fronts.run/") \
+                and isinstance(raw.get("description"), dict):
+            raw = raw["description"]  # the run.json of a run directory: the resolved description it stores
     else:
         try:
             raw = tomllib.loads(text)

@@ -49,3 +49,10 @@ CONVENTIONS = (
     "C(r,t) = 1 - Re Tr[W(t) V_r W(t) V_r]/2^L in [0, 2]; product state: 1 - Re <s|W(t) V_r W(t) V_r|s>, "
     "'0' = spin up (Z = +1); MPO over Pauli letters I, X, Y, Z with unit Frobenius weight"
 )
+
+
+def default_probe(probes) -> str:
+    """The probe V used when none is named: Z if it is stored, else the first stored one (the same default in
+    ``converge``, ``summary``, ``plot`` and the demo, so that a convergence study's trust map applies)."""
+    probes = [str(p).upper() for p in probes]
+    return "Z" if "Z" in probes else probes[0]

@@ -107,7 +107,7 @@ def plot_heatmap(ens, threshold: float = 0.5, probe: str = "Z", *, levels: Seque
     t = t[keep]
     mean = C.mean(axis=0)[keep]
     median = np.median(C, axis=0)[keep]
-    mask, info = trust.trust_mask(ens, use_trust, max_discarded)
+    mask, info = trust.trust_mask(ens, use_trust, max_discarded, probe)
     L = C.shape[2]
     untrusted = (~np.broadcast_to(mask, C.shape).all(axis=0))[keep] if mask is not None else np.zeros(mean.shape, bool)
     fig, axes = _figure(6.4, 4.8)
@@ -338,7 +338,14 @@ def _check_only(only) -> list[str]:
     names = [only] if isinstance(only, str) else list(only)
     bad = [n for n in names if n not in FIGURES]
     if bad or not names:
-        raise InputError(f"only must name figures among {', '.join(FIGURES)}, got {only!r}")
+        import difflib
+
+        hints = [f"did you mean {m[0]!r} for {b!r}?" for b in bad
+                 if (m := difflib.get_close_matches(b.lower().replace("-", "_"), list(FIGURES), n=1, cutoff=0.6))]
+        if len(hints) == 1:
+            hints = [hints[0].split(" for ")[0] + "?"]
+        raise InputError(f"only must name figures among {', '.join(FIGURES)}, got {only!r}"
+                         + (f"; {' '.join(hints)}" if hints else ""), arg="only")
     return names
 
 

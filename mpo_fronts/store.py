@@ -223,16 +223,16 @@ def _read_claim(path: Path) -> ClaimInfo | None:
 
 
 # ------------------------------------------------------------------------------------------- run directory
-def _diff(a, b, prefix: str = "") -> list[str]:
+def _diff(a, b, prefix: str = "", names: tuple[str, str] = ("stored", "given")) -> list[str]:
     """Dotted keys where two nested dicts differ, with both values (shortened)."""
     out = []
     if isinstance(a, dict) and isinstance(b, dict):
         for key in sorted(set(a) | set(b)):
-            out += _diff(a.get(key, "<unset>"), b.get(key, "<unset>"), f"{prefix}.{key}" if prefix else key)
+            out += _diff(a.get(key, "<unset>"), b.get(key, "<unset>"), f"{prefix}.{key}" if prefix else key, names)
     elif a != b:
         sa, sb = repr(a), repr(b)
-        out.append(f"{prefix}: stored {sa[:40] + ('...' if len(sa) > 40 else '')}, "
-                   f"given {sb[:40] + ('...' if len(sb) > 40 else '')}")
+        out.append(f"{prefix}: {names[0]} {sa[:40] + ('...' if len(sa) > 40 else '')}, "
+                   f"{names[1]} {sb[:40] + ('...' if len(sb) > 40 else '')}")
     return out
 
 
@@ -293,8 +293,9 @@ class RunDirectory:
                 lines = _diff(stored, new) or ["(the descriptions differ)"]
                 raise RunDirectoryError(f"{p} holds a run of a different description; nothing was changed. "
                                         f"Differences: {'; '.join(lines[:6])}"
-                                        f"{' ...' if len(lines) > 6 else ''}. Use another --out directory, "
-                                        "or run the stored description (run.json) again to resume it")
+                                        f"{' ...' if len(lines) > 6 else ''}. Use another output directory, "
+                                        f"or resume the stored run with its own description: fronts run "
+                                        f"{p / RUN_FILE} --out {p}")
 
     @classmethod
     def create(cls, path, description: RunDescription) -> "RunDirectory":
@@ -889,12 +890,21 @@ def merge(sources: Iterable, out, overwrite: bool = False) -> tuple[Path, Ensemb
         raise InputError("merge needs at least one run directory or file")
     out = Path(out)
     if out.exists() and not overwrite:
-        raise RunDirectoryError(f"{out}: exists; choose another output file (nothing was written)")
+        raise RunDirectoryError(f"{out}: exists; choose another output file, or replace it with overwrite=True "
+                                "(fronts merge --force); nothing was written")
     ens = [load(s) for s in sources]
-    fps = {parse_description(e.description).fingerprint() for e in ens}
-    if len(fps) > 1:
-        raise RunDirectoryError("the sources hold runs of different descriptions and cannot be merged: "
-                                + ", ".join(str(s) for s in sources))
+    descs = [parse_description(e.description) for e in ens]
+    for src, e, d in zip(sources[1:], ens[1:], descs[1:]):
+        if d.fingerprint() != descs[0].fingerprint():
+            a, b = (dict(x.to_dict()) for x in (descs[0], d))
+            for x in (a, b):
+                x.pop("run", None)
+                x["ensemble"] = {k: v for k, v in x.get("ensemble", {}).items() if k != "realizations"}
+            lines = _diff(a, b, names=(str(sources[0]), str(src))) or ["(the descriptions differ)"]
+            raise RunDirectoryError(f"{sources[0]} and {src} hold runs of different descriptions and cannot be "
+                                    f"merged; nothing was written. Differences: {'; '.join(lines[:6])}"
+                                    f"{' ...' if len(lines) > 6 else ''}")
+    out.parent.mkdir(parents=True, exist_ok=True)
     if len(ens) == 1:
         merged = ens[0]
     else:

@@ -15,6 +15,7 @@ from typing import Any, Callable, Sequence
 import numpy as np
 
 from .config import RunDescription
+from .conventions import default_probe
 from .ensemble import evolve_realization, run_ensemble
 from .errors import InputError
 from .store import RunDirectory
@@ -117,7 +118,7 @@ def converge(description: RunDescription, chis: Sequence[int], out, *, dt: float
              probe: str | None = None, tol: float = 1e-2, rel_tol: float = 0.0, **run_kwargs) -> dict:
     """Run the description at each bond dimension into ``out/chi_016`` ... and store the convergence arrays.
 
-    Every chi uses the same seeds (identical disorder). The OTOCs of ``probe`` (default: the first stored probe)
+    Every chi uses the same seeds (identical disorder). The OTOCs of ``probe`` (default: Z if stored, else the first stored probe)
     go to :func:`mpo_fronts.trust.bond_convergence` (with ``tol`` and ``rel_tol``), whose result is written to
     ``out/convergence.h5``;
     ``mpo_fronts.load(out)`` then loads the largest chi with ``.convergence`` attached.
@@ -132,7 +133,7 @@ def converge(description: RunDescription, chis: Sequence[int], out, *, dt: float
     chis = sorted({int(c) for c in chis})
     if len(chis) < 2 or chis[0] < 1:
         raise InputError(f"chis needs at least two distinct positive bond dimensions, got {list(chis)}", arg="chis")
-    probe = probe or description.probes[0]
+    probe = probe or default_probe(description.probes)
     if probe not in description.probes and description.state_kind != "infinite_temperature":
         raise InputError(f"probe {probe!r} is not stored by the description (operators.v = "
                          f"{list(description.probes)})")
