@@ -305,6 +305,11 @@ def _cmd_run(args) -> int:
         _say(f"held by another live run ({len(rep.busy)}): " + ", ".join(
             f"r{k} ({o['host']} pid {o['pid']})" for k, o in sorted(rep.busy.items())[:10])
             + "; see 'fronts status', or rerun with --wait")
+    if rep.computed:
+        from .store import run_status
+
+        with __import__("contextlib").suppress(Exception):
+            _discarded_warning(run_status(args.out)["max_discarded_weight"])
     _say(f"next: fronts status {args.out}; fronts merge {args.out} -o merged.h5; "
          f"python -c \"import mpo_fronts as mf; ens = mf.load('{args.out}')\"")
     return 0
@@ -340,9 +345,18 @@ def _status_one(directory, as_json: bool) -> int:
         items = list(items)
         return ", ".join(f"r{k}" for k in items[:limit]) + (" ..." if len(items) > limit else "")
 
+    try:
+        from .config import parse_description
+
+        site = parse_description(d).site
+    except Exception:  # noqa: BLE001 - a description of another version: show what is stored
+        site = d["operators"]["site"]
+    m = d["model"]
+    disorder = f", disorder W = {m['W']:g}" if isinstance(m.get("W"), (int, float)) else ""
     _say(f"run directory: {st['path']}",
-         f"  {d['model']['kind']} L={d['model']['L']}, W at site {d['operators']['site']}, "
-         f"chi={ev['chi']}, dt={ev['dt']}, order {ev['order']}, "
+         f"  {m['kind']} L={m['L']}{disorder}; operator {d['operators']['w']} at site {site}"
+         + (f" ({d['operators']['site']})" if str(d["operators"]["site"]) != str(site) else "")
+         + f"; chi={ev['chi']}, dt={ev['dt']}, order {ev['order']}, "
          f"{len(d['times']['values'])} times up to t={d['times']['values'][-1]:g}",
          f"  done:         {n_done} of {st['realizations']}"
          + (f" (wall time {_fmt_s(st['wall_time'])} total, {_fmt_s(st['wall_time'] / n_done)} per realization)"
@@ -357,7 +371,20 @@ def _status_one(directory, as_json: bool) -> int:
          f"  missing:      {len(st['missing'])}" + (f"  {ks(st['missing'])}" if st["missing"] else ""),
          f"  largest discarded weight: {st['max_discarded_weight']:.3g}; largest bond dimension: {st['max_bond']}"
          if n_done else "  (no finished realization yet)")
+    if n_done:
+        _discarded_warning(st["max_discarded_weight"])
     return 0
+
+
+def _discarded_warning(dw: float) -> None:
+    """A loud line when a run lost more than LARGE_DISCARDED_WEIGHT of W's Frobenius weight."""
+    from .errors import LARGE_DISCARDED_WEIGHT
+
+    if dw is not None and float(dw) > LARGE_DISCARDED_WEIGHT:
+        _say(_paragraph(f"WARNING: a realization lost {float(dw):.3g} of W's Frobenius weight to truncation "
+                        f"(more than {LARGE_DISCARDED_WEIGHT:g}); C is normalised by the weight that remains, so "
+                        "values behind the front are not meaningful there. Raise evolution.chi, or trust only the "
+                        "front and ahead of it after a bond-dimension comparison (fronts converge)."))
 
 
 def _cmd_merge(args) -> int:

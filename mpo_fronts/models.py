@@ -65,6 +65,22 @@ class Chain:
     couplings: np.ndarray | None = None
     conserves_sz: bool = False
 
+    def __repr__(self) -> str:
+        shown = {k: v for k, v in self.params.items() if k not in ("fields", "couplings")}
+        par = ", ".join(f"{k}={v:g}" if isinstance(v, float) else f"{k}={v!r}" for k, v in shown.items())
+        extra = ""
+        if self.fields is not None and np.size(self.fields):
+            h = np.asarray(self.fields, dtype=float)
+            extra += f", fields in [{h.min():.3g}, {h.max():.3g}]"
+        if self.couplings is not None and np.size(self.couplings):
+            j = np.asarray(self.couplings, dtype=float)
+            if np.ptp(j):
+                extra += f", couplings in [{j.min():.3g}, {j.max():.3g}]"
+        return (f"Chain({self.kind}, L={self.L}{', ' + par if par else ''}{extra}"
+                f"{', conserves S^z' if self.conserves_sz else ''})")
+
+    __str__ = __repr__
+
     def site_share(self) -> tuple[np.ndarray, np.ndarray]:
         """Weights with which bond b takes the one-site terms of its left (b) and right (b+1) site."""
         nb = self.L - 1

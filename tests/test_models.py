@@ -93,3 +93,12 @@ def test_errors_pickle():
     assert isinstance(e, ValueError) and e.key == "engine.chi" and "engine.chi" in str(e)
     e2 = pickle.loads(pickle.dumps(InputError("L must be >= 2")))
     assert str(e2) == "L must be >= 2"
+
+
+def test_chain_repr_is_one_short_line():
+    """print(chain) of a long disordered chain: one line naming the model, not hundreds of array rows."""
+    c = mf.xxz_chain(100, W=2.0, seed=3)
+    text = repr(c)
+    assert "\n" not in text and len(text) < 200
+    assert "L=100" in text and "W=2" in text and "fields in [" in text
+    assert str(mf.mixed_field_ising_chain(10)).startswith("Chain(mixed_field_ising, L=10")

@@ -166,3 +166,23 @@ def test_exact_size_advice_names_reachable_functions():
     res = mf.typicality_otoc(mf.xxz_chain(6, W=1.0, seed=1), "Z", 0, "Z", [0.5], n_states=2, seed=1)
     assert np.all(np.isfinite(res.otoc))
     assert callable(mf.eigenstate_otoc) and callable(mf.free_fermion_otoc)
+
+
+# ------------------------------------------------------------------ first screens
+def test_status_names_site_and_disorder_and_flags_lost_weight(run_dir, tmp_path, capsys):
+    assert main(["status", str(run_dir)]) == 0
+    text = capsys.readouterr().out
+    assert "disorder W = 1" in text and "operator Z at site 0" in text
+    assert "WARNING" not in text  # chi = 16 at L = 6 keeps everything
+    lossy = tmp_path / "lossy.toml"
+    lossy.write_text(SMALL.format(probes='"Z"', seed=3).replace("chi = 16", "chi = 1")
+                     .replace("[0.5, 1.0, 1.5]", "[1.0, 2.0, 4.0]").replace('site = 0', 'site = "center"'))
+    assert main(["run", str(lossy), "--out", str(tmp_path / "L"), "--progress", "none"]) == 0
+    run_text = capsys.readouterr().out
+    assert main(["status", str(tmp_path / "L")]) == 0
+    text = capsys.readouterr().out
+    assert "operator Z at site 3 (center)" in text
+    dw = float(mf.load(tmp_path / "L").discarded_weight.max())
+    assert dw > 0.1, "the test needs a run that loses more than 10 % of the weight"
+    for t in (run_text, text):
+        assert "WARNING" in t and "Frobenius weight" in t
