@@ -230,6 +230,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="threshold theta of C for contours and crossing times (default: 0.5)")
     p.add_argument("--probe", type=_probe, default=None,
                    help="probe V (default: Z if stored, else the first of operators.v)")
+    p.add_argument("--color-scale", choices=("linear", "log"), default="linear",
+                   help="colour scale of the heat map; log shows fronts at C ~ 1e-3..0.1 (default: linear)")
 
     p = sub.add_parser("demo", help="run the two demo ensembles, summarize them and draw their figures",
                        description="Run the built-in demo_thermal.toml (W = 0.5) and demo_localized.toml (W = 5), "
@@ -511,7 +513,8 @@ def _cmd_plot(args) -> int:
     ens = _load(args.directory)
     _check_output(args.out, "--out")
     only = args.only.split(",") if args.only and "," in args.only else args.only
-    paths = write_figures(ens, args.out, only=only, threshold=args.threshold, probe=_default_probe(ens, args.probe))
+    paths = write_figures(ens, args.out, only=only, threshold=args.threshold, probe=_default_probe(ens, args.probe),
+                          color_scale=args.color_scale)
     _say(f"wrote {len(paths)} file(s) to {args.out}:", *(f"  {p}" for p in paths))
     return 0
 

@@ -79,7 +79,7 @@ def _title(ens, probe: str | None) -> str:
     R = len(ens.realizations)
     w = getattr(ens, "w", "W")
     v = f", V = {probe}" if probe else ""
-    return f"{model} L = {ens.L}, W = {w} at site {ens.site}{v}, {R} realization(s)".strip()
+    return f"{model} L = {ens.L}, operator {w} at site {ens.site}{v}, {R} realization(s)".strip()
 
 
 def _colors(n: int, cmap: str = "viridis", lo: float = 0.1, hi: float = 0.8):
@@ -91,12 +91,19 @@ def _colors(n: int, cmap: str = "viridis", lo: float = 0.1, hi: float = 0.8):
 
 # ------------------------------------------------------------------------------------------ figures
 def plot_heatmap(ens, threshold: float = 0.5, probe: str = "Z", *, levels: Sequence[float] | None = None,
-                 use_trust: bool = True, max_discarded: float = trust.DEFAULT_MAX_DISCARDED):
+                 use_trust: bool = True, max_discarded: float = trust.DEFAULT_MAX_DISCARDED,
+                 color_scale: str = "linear", c_min: float = 1e-4):
     """Ensemble-mean C(r, t) as a heat map on a log-time axis.
 
     Solid contour: mean curve at ``threshold``; dashed: median curve at ``threshold``; dotted: mean curve at
     the extra ``levels``. Hatched cells are untrusted (see :func:`mpo_fronts.trust.trust_mask`).
+    ``color_scale="log"`` colours log10 C from ``c_min`` up (a front at C ~ 0.05 or a tail at 1e-3 is invisible
+    on the linear 0..2 scale); values below ``c_min`` take the lowest colour. The legend sits below the axes.
     """
+    if color_scale not in ("linear", "log"):
+        raise InputError(f"color_scale must be 'linear' or 'log', got {color_scale!r}", arg="color_scale")
+    if not (isinstance(c_min, (int, float)) and 0 < c_min < 2):
+        raise InputError(f"c_min must be a number in (0, 2), got {c_min!r}", arg="c_min")
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
@@ -115,9 +122,16 @@ def plot_heatmap(ens, threshold: float = 0.5, probe: str = "Z", *, levels: Seque
     xe = np.arange(L + 1) - 0.5
     te = _log_edges(t)
     vmax = max(float(np.nanmax(mean)), 1.1 * theta)
-    mesh = ax.pcolormesh(xe, te, mean, cmap="cividis", vmin=0.0, vmax=vmax, shading="flat", rasterized=True)
+    if color_scale == "log":
+        from matplotlib.colors import LogNorm
+
+        norm = LogNorm(vmin=c_min, vmax=max(vmax, 10 * c_min))
+        mesh = ax.pcolormesh(xe, te, np.clip(mean, c_min, None), cmap="cividis", norm=norm, shading="flat",
+                             rasterized=True)
+    else:
+        mesh = ax.pcolormesh(xe, te, mean, cmap="cividis", vmin=0.0, vmax=vmax, shading="flat", rasterized=True)
     cb = fig.colorbar(mesh, ax=ax)
-    cb.set_label(f"ensemble mean of C(r, t), V = {probe.upper()}")
+    cb.set_label(f"ensemble mean of C(r, t), V = {probe.upper()}" + (" (log scale)" if color_scale == "log" else ""))
     r = np.arange(L)
     handles = []
     for curve, style, name in ((mean, "-", "mean"), (median, "--", "median")):
@@ -148,7 +162,7 @@ def plot_heatmap(ens, threshold: float = 0.5, probe: str = "Z", *, levels: Seque
     ax.set_xlabel(f"site r (W at site i = {ens.site})")
     ax.set_ylabel(_T_LABEL)
     ax.set_title(_title(ens, probe.upper()), fontsize=9)
-    ax.legend(handles=handles, loc="upper left", fontsize=7, framealpha=0.85)
+    fig.legend(handles=handles, loc="outside lower center", ncols=min(len(handles), 4), fontsize=7, frameon=False)
     fig.suptitle(f"{_C_LABEL}; trust: {info['source']}", fontsize=8)
     return fig
 
@@ -180,14 +194,22 @@ def plot_distribution(ens, r: int | None = None, probe: str = "Z", *, bins: int 
     ax.set_xscale("log")
     ax.set_ylim(dist["edges"][0], dist["edges"][-1])
     ax.set_ylabel(f"C(r, t) at r = {dist['r']} (d = {dist['d']})")
-    ax.legend(loc="upper left", fontsize=7, framealpha=0.85)
+    ax.legend(loc="best", fontsize=7, framealpha=0.85)
     ax.set_title(_title(ens, probe.upper()), fontsize=9)
-    bx.plot(t, dist["bimodality"][keep], color="k", marker=".", ms=3, lw=1.0)
-    bx.axhline(5 / 9, color="0.4", ls=":", lw=1.0, label="5/9 (uniform)")
+    b = dist["bimodality"][keep]
+    if np.any(np.isfinite(b)):
+        bx.plot(t, b, color="k", marker=".", ms=3, lw=1.0)
+        bx.axhline(5 / 9, color="0.4", ls=":", lw=1.0, label="5/9 (uniform)")
+        bx.legend(loc="best", fontsize=7)
+    else:
+        n = len(ens.realizations)
+        why = (f"{n} realization{'s' if n != 1 else ''}: Sarle's bimodality coefficient needs at least 4 "
+               "realizations with spread" if n < 4 else "no spread over realizations at this site: bimodality "
+               "undefined")
+        bx.text(0.5, 0.5, why, ha="center", va="center", transform=bx.transAxes, fontsize=8, color="0.3")
     bx.set_ylim(0, 1.05)
     bx.set_xlabel(_T_LABEL)
     bx.set_ylabel("Sarle's b")
-    bx.legend(loc="upper left", fontsize=7)
     return fig
 
 
@@ -204,6 +226,7 @@ def plot_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, lc: dict |
     cross, real = lc["crossings"], lc["realization_crossings"]
     fig, axes = _figure(8.8, 4.0, ncols=2)
     colors = _colors(2, lo=0.2, hi=0.65)
+    bands_drawn = False
     for j, ax in enumerate(axes[0]):
         R = real.tstar.shape[0]
         jitter = np.linspace(-0.15, 0.15, R) if R > 1 else np.zeros(1)
@@ -222,6 +245,7 @@ def plot_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, lc: dict |
             band = f["band"]
             if band["d"].size and np.any(np.isfinite(band["fit"])):
                 if np.any(np.isfinite(band["low"])):
+                    bands_drawn = True
                     ax.fill_between(band["d"], band["low"], band["high"], color=c, alpha=0.25, lw=0,
                                     hatch="...." if law == "log" else None)
                 val = f["value"]
@@ -239,10 +263,12 @@ def plot_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, lc: dict |
             ax.set_ylabel("crossing time t* (1/J), log scale")
         else:  # nothing crossed: a log axis has no positive data to scale
             ax.set_ylabel("crossing time t* (1/J)")
-    axes[0, 0].legend(fontsize=7, loc="upper left", framealpha=0.85)
+    axes[0, 0].legend(fontsize=7, loc="best", framealpha=0.85)
     rr = lc["fits"]["ballistic"]["r_range"]
+    ci = int(round(100 * lc["fits"]["ballistic"]["ci"]))
+    bands = f"shaded: {ci}% bands of the fits" if bands_drawn else "no fit band (too few crossings or realizations)"
     fig.suptitle(f"{_title(ens, lc['probe'])}; threshold C = {lc['threshold']:g}, fit range d = {rr[0]}..{rr[1]}, "
-                 f"{int(round(100 * lc['fits']['ballistic']['ci']))}% bands", fontsize=8)
+                 f"{bands}", fontsize=8)
     return fig
 
 
@@ -283,7 +309,7 @@ def plot_convergence(ens, threshold: float = 0.5, probe: str = "Z"):
     ax.set_xlabel("bond dimension chi (successive pairs)")
     ax.set_ylabel(f"largest |C_chi - C_chi'| over realizations, V = {probe.upper()}")
     ax.set_title(_title(ens, probe.upper()) + f", {side} side", fontsize=9)
-    ax.legend(fontsize=7)
+    ax.legend(fontsize=7, loc="best")
     return fig
 
 
@@ -301,8 +327,8 @@ def plot_front(ens, n_profiles: int = 6, **opts):
         ax.plot(fr["x"], fr["profile"][k], color=c, marker=markers[j % len(markers)], ms=3, lw=1.2,
                 label=f"t = {t[k]:.3g}")
     ax.set_xlabel("r - i (sites to the right of W)")
-    ax.set_ylabel("right weight rho(r, t) (ensemble mean)")
-    ax.legend(fontsize=7, title="time (1/J)", title_fontsize=7)
+    ax.set_ylabel(r"right weight $\rho(r, t)$ (ensemble mean)")
+    ax.legend(fontsize=7, title="time (1/J)", title_fontsize=7, loc="best")
     wexp = fr["width_exponent"]
     tw, ww = t[keep], fr["width"][keep]
     pos = ww > 0
@@ -313,12 +339,13 @@ def plot_front(ens, n_profiles: int = 6, **opts):
     if np.isfinite(wexp["value"]):
         tt = wexp["times"]
         bx.plot(tt, wexp["prefactor"] * tt ** wexp["value"], color=_colors(1, lo=0.55)[0], lw=2.0,
-                label=(f"w ~ t^beta, beta = {wexp['value']:.3g} [{wexp['ci_low']:.3g}, {wexp['ci_high']:.3g}]"))
+                label=(rf"$w \sim t^\beta$, $\beta$ = {wexp['value']:.3g} [{wexp['ci_low']:.3g}, "
+                       rf"{wexp['ci_high']:.3g}]"))
     bx.set_xscale("log")
     bx.set_yscale("log")
     bx.set_xlabel(_T_LABEL)
     bx.set_ylabel("front width w(t) (sites)")
-    bx.legend(fontsize=7)
+    bx.legend(fontsize=7, loc="best")
     fig.suptitle(_title(ens, None) + "; right end of W(t)", fontsize=8)
     return fig
 
@@ -352,7 +379,7 @@ def _check_only(only) -> list[str]:
 def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshold: float = 0.5, probe: str = "Z",
                   formats: Sequence[str] = ("png", "pdf"), *, r: int | None = None, dpi: int = 150,
                   n_boot: int = 500, seed: int = 0, use_trust: bool = True,
-                  max_discarded: float = trust.DEFAULT_MAX_DISCARDED) -> list[Path]:
+                  max_discarded: float = trust.DEFAULT_MAX_DISCARDED, color_scale: str = "linear") -> list[Path]:
     """Write the figures of a loaded ensemble to ``outdir``, one file per figure and format.
 
     Parameters
@@ -376,6 +403,8 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
         Bootstrap of the light-cone and width fits (see :func:`mpo_fronts.analysis.light_cone`).
     use_trust, max_discarded
         Trust mask as in :func:`mpo_fronts.report.summarize` (False: every point is used and nothing hatched).
+    color_scale : {'linear', 'log'}
+        Colour scale of the heat map (see :func:`plot_heatmap`).
 
     Returns
     -------
@@ -388,6 +417,8 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
         raise InputError(f"formats must be a non-empty list among {', '.join(_FORMATS)}, got {formats!r}")
     an.check_threshold(threshold)
     an.probe_otoc(ens, probe)
+    if color_scale not in ("linear", "log"):
+        raise InputError(f"color_scale must be 'linear' or 'log', got {color_scale!r}", arg="color_scale")
     if getattr(ens, "convergence", None) is None:
         if only is not None and "convergence" in names:
             raise InputError("only names 'convergence', but this ensemble has no bond-dimension convergence "
@@ -400,7 +431,8 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
     written: list[Path] = []
     for name in names:
         if name == "heatmap":
-            fig = plot_heatmap(ens, threshold, probe, use_trust=use_trust, max_discarded=max_discarded)
+            fig = plot_heatmap(ens, threshold, probe, use_trust=use_trust, max_discarded=max_discarded,
+                               color_scale=color_scale)
         elif name == "distribution":
             fig = plot_distribution(ens, r=r, probe=probe)
         elif name == "light_cone":

@@ -53,7 +53,7 @@ def test_axis_labels_read_back_from_figures():
     assert ax.get_xlabel() == "site r (W at site i = 3)" and ax.get_ylabel() == "time t (1/J)"
     assert ax.get_yscale() == "log"
     assert "ensemble mean of C(r, t), V = Z" in [a.get_ylabel() for a in fig.axes]  # the colour bar
-    assert "untrusted" in [h.get_text() for h in ax.get_legend().get_texts()]  # late times are untrusted
+    assert "untrusted" in [h.get_text() for h in fig.legends[0].get_texts()]  # late times are untrusted
 
     fig = plots.plot_light_cone(ens, 0.5, "Z", n_boot=50)
     left, right = fig.axes[:2]
@@ -106,3 +106,44 @@ def test_light_cone_figure_when_nothing_crosses(tmp_path):
     assert [p.name for p in paths] == ["light_cone.png"] and paths[0].stat().st_size > 2000
     fig = plots.plot_light_cone(ens, 0.5, "Z", n_boot=20)
     assert fig.axes[1].get_yscale() == "linear"
+
+
+def _texts(fig):
+    return " ".join(t.get_text() for ax in fig.axes for t in ax.texts)
+
+
+def test_one_realization_distribution_panel_says_why_it_is_empty():
+    fig = plots.plot_distribution(synthetic_ensemble(R=1), r=8)
+    assert "needs at least 4 realizations" in _texts(fig)
+    assert not any(line.get_label() == "5/9 (uniform)" for line in fig.axes[1].lines)
+    fig = plots.plot_distribution(synthetic_ensemble(R=6), r=8)
+    assert "needs at least 4" not in _texts(fig)
+
+
+def test_heatmap_log_colour_scale_and_legend_off_the_data():
+    from matplotlib.colors import LogNorm
+
+    ens = synthetic_ensemble()
+    fig = plots.plot_heatmap(ens, color_scale="log", c_min=1e-3)
+    mesh = fig.axes[0].collections[0]
+    assert isinstance(mesh.norm, LogNorm) and mesh.norm.vmin == pytest.approx(1e-3)
+    assert fig.axes[0].get_legend() is None and fig.legends, "the legend is outside the axes"
+    assert not isinstance(plots.plot_heatmap(ens).axes[0].collections[0].norm, LogNorm)
+    with pytest.raises(InputError, match="color_scale"):
+        plots.plot_heatmap(ens, color_scale="logarithmic")
+
+
+def test_light_cone_promises_bands_only_when_drawn():
+    fig = plots.plot_light_cone(synthetic_ensemble(), n_boot=50)
+    assert "bands of the fits" in fig._suptitle.get_text()
+    assert any(type(c).__name__ in ("PolyCollection", "FillBetweenPolyCollection") for c in fig.axes[0].collections)
+    one = plots.plot_light_cone(synthetic_ensemble(R=1), n_boot=50)
+    drawn = any(type(c).__name__ in ("PolyCollection", "FillBetweenPolyCollection") for c in one.axes[0].collections)
+    assert ("bands of the fits" in one._suptitle.get_text()) == drawn
+
+
+def test_front_figure_renders_greek_symbols():
+    fig = plots.plot_front(synthetic_ensemble(), n_boot=50)
+    assert r"$\rho(r, t)$" in fig.axes[0].get_ylabel()
+    labels = [t.get_text() for t in fig.axes[1].get_legend().get_texts()]
+    assert any(r"$\beta$" in s for s in labels), labels
