@@ -19,11 +19,13 @@ seconds, or when it belongs to the same run (a task that Dask retried after its 
 Realization files hold ``times``; per probe ``otoc/<v>`` = C[t, r] (the mean over the basis states for
 product-state runs, with the individual states in ``state_otoc/<v>`` of shape (samples, n_t, L) and the
 bitstrings in ``bits``); ``weights`` (n_t, L, 4) single-site Pauli weights (I, X, Y, Z); ``right_weight``
-(n_t, L); ``discarded_weight`` and ``max_bond`` (n_t,); ``fields`` (L,) in S^z units (NaN for the mixed-field
-Ising chain, which has no per-site fields); ``couplings`` (L-1,); ``seed`` (k, ensemble seed); ``wall_time``
+(n_t, L); ``discarded_weight`` and ``max_bond`` (n_t,); ``bond_discarded`` and ``bond_entropy`` (n_t, L-1),
+the discarded weight and the operator entanglement entropy per bond (from 0.2 on); ``fields`` (L,) in S^z
+units (NaN for the mixed-field Ising chain, which has no per-site fields); ``couplings`` (L-1,); ``seed`` (k, ensemble seed); ``wall_time``
 (seconds, summed over restarts); and as attributes the package version, :data:`mpo_fronts.CONVENTIONS`, the
 resolved description (JSON), and the engine settings (chi, dt, Trotter order, cutoff, chunk, and ``max_step``,
-the largest Trotter step actually used).
+the largest Trotter step actually used). Every dataset carries the attributes ``axes``, ``units`` and ``meaning``
+(:data:`DATASETS`).
 
 :func:`load` reads a run directory, a merged file (:func:`merge`), or a convergence study directory (written by
 ``fronts converge``), and returns an :class:`Ensemble`.
@@ -487,20 +489,74 @@ class RunDirectory:
             self.checkpoint_path(k).unlink()
 
 
+#: What each stored dataset is: its axes (without the leading ``realization`` axis of merged files), units and
+#: meaning. Written as the attributes ``axes``, ``units`` and ``meaning`` of every dataset.
+DATASETS: dict[str, tuple[tuple[str, ...], str, str]] = {
+    "times": (("time",), "1/J", "output times"),
+    "otoc": (("time", "site"), "dimensionless, in [0, 2]",
+             "C(r, t) = 1 - Re Tr[W(t) V_r W(t) V_r] / 2^L, normalised by the Frobenius weight kept"),
+    "state_otoc": (("state", "time", "site"), "dimensionless, in [0, 2]",
+                   "1 - Re <s|W(t) V_r W(t) V_r|s> for each basis state s of `bits`"),
+    "weights": (("time", "site", "letter"), "fraction of the Frobenius weight",
+                "single-site Pauli weights of W(t); letter axis I, X, Y, Z"),
+    "right_weight": (("time", "site"), "fraction of the Frobenius weight",
+                     "weight of the Pauli strings whose rightmost non-identity letter sits at the site"),
+    "discarded_weight": (("time",), "fraction of the Frobenius weight",
+                         "cumulative weight dropped by truncation up to the time (all bonds)"),
+    "bond_discarded": (("time", "bond"), "fraction of the Frobenius weight",
+                       "cumulative weight dropped at bond (b, b+1) up to the time"),
+    "bond_entropy": (("time", "bond"), "nats",
+                     "operator entanglement entropy of W(t) across bond (b, b+1) (normalised Schmidt weights)"),
+    "max_bond": (("time",), "count", "largest bond dimension of W(t)"),
+    "fields": (("site",), "J (S^z units)", "fields h_i used; NaN for the mixed-field Ising chain"),
+    "couplings": (("bond",), "J", "couplings J_i used"),
+    "seed": (("entropy",), "", "numpy SeedSequence entropy [k, ensemble seed] of the realization"),
+    "wall_time": ((), "s", "wall time of the realization"),
+    "max_step": ((), "1/J", "largest Trotter step used"),
+    "bits": (("state",), "", "basis states, '0' = spin up (Z = +1)"),
+    "realizations": (("realization",), "", "realization indices"),
+}
+
+
+def _describe(ds, name: str, merged: bool = False) -> None:
+    """The axes, units and meaning attributes of a dataset (see DATASETS)."""
+    key = name.split("/")[0]
+    if key not in DATASETS:
+        return
+    axes, units, meaning = DATASETS[key]
+    if merged and key not in ("times", "realizations"):
+        axes = ("realization",) + axes
+    ds.attrs["axes"] = ",".join(axes)
+    ds.attrs["units"] = units
+    ds.attrs["meaning"] = meaning
+    if "letter" in axes:
+        ds.attrs["letters"] = ",".join(LETTER_AXIS)
+    if key in ("otoc", "state_otoc"):
+        ds.attrs["probe"] = name.split("/")[-1]
+
+
+#: Per-realization arrays a result file may lack (written from version 0.2 on).
+OPTIONAL = ("bond_discarded", "bond_entropy")
+
+
 def _write_arrays(f, result: dict) -> None:
-    f.create_dataset("times", data=np.asarray(result["times"], dtype=float))
-    og = f.create_group("otoc")
+    def put(name, data):
+        _describe(f.create_dataset(name, data=data), name)
+
+    put("times", np.asarray(result["times"], dtype=float))
     for v, a in result["otoc"].items():
-        og.create_dataset(v, data=a)
+        put(f"otoc/{v}", a)
     for name in ("weights", "right_weight", "discarded_weight", "max_bond", "fields", "couplings"):
-        f.create_dataset(name, data=result[name])
-    f.create_dataset("seed", data=np.asarray(result["seed"], dtype=np.int64))
-    f.create_dataset("wall_time", data=float(result["wall_time"]))
+        put(name, result[name])
+    for name in OPTIONAL:
+        if result.get(name) is not None:
+            put(name, np.asarray(result[name], dtype=float))
+    put("seed", np.asarray(result["seed"], dtype=np.int64))
+    put("wall_time", float(result["wall_time"]))
     if result.get("bits") is not None:
-        f.create_dataset("bits", data=np.asarray([b.encode() for b in result["bits"]]))
-        sg = f.create_group("state_otoc")
+        put("bits", np.asarray([b.encode() for b in result["bits"]]))
         for v, a in result["state_otoc"].items():
-            sg.create_dataset(v, data=a)
+            put(f"state_otoc/{v}", a)
 
 
 # ------------------------------------------------------------------------------------------- status
@@ -686,6 +742,17 @@ class Ensemble:
     couplings = property(lambda self: self._get("couplings"), doc="(R, L-1) couplings used")
     discarded_weight = property(lambda self: self._get("discarded_weight"), doc="(R, n_t) discarded weight")
     max_bond = property(lambda self: self._get("max_bond"), doc="(R, n_t) largest bond dimension")
+
+    def _optional(self, name: str) -> np.ndarray | None:
+        try:
+            return self._get(name)
+        except KeyError:  # files written before these arrays existed
+            return None
+
+    bond_discarded = property(lambda self: self._optional("bond_discarded"),
+                              doc="(R, n_t, L-1) cumulative discarded weight per bond, or None (older files)")
+    bond_entropy = property(lambda self: self._optional("bond_entropy"),
+                            doc="(R, n_t, L-1) operator entanglement entropy per bond (nats), or None")
     seeds = property(lambda self: self._get("seed"), doc="(R, 2) SeedSequence entropy (k, seed)")
     wall_time = property(lambda self: np.asarray(self._get("wall_time"), dtype=float), doc="(R,) seconds")
 
@@ -700,6 +767,8 @@ class Ensemble:
             "right_weight": (("realization", "time", "site"), self.right_weight),
             "discarded_weight": (("realization", "time"), self.discarded_weight),
             "max_bond": (("realization", "time"), self.max_bond),
+            **{name: (("realization", "time", "bond"), a) for name in OPTIONAL
+               if (a := self._optional(name)) is not None},
             "fields": (("realization", "site"), self.fields),
             "couplings": (("realization", "bond"), self.couplings),
             "wall_time": (("realization",), self.wall_time),
@@ -714,12 +783,14 @@ class Ensemble:
         """Write everything into one merged HDF5 file (readable by :func:`load`)."""
         path = Path(path)
         if path.exists() and not overwrite:
-            raise RunDirectoryError(f"{path}: exists; choose another output file (nothing was written)")
+            raise RunDirectoryError(f"{path}: exists; choose another output file, or replace it with "
+                                    "overwrite=True (fronts merge --force); nothing was written")
         if len(self) == 0:
             raise InputError("nothing to merge: the run holds no finished realizations yet")
         version, conventions = _package_info()
         names = [f"otoc/{v}" for v in self.probes] + ["weights", "right_weight", "discarded_weight",
                                                       "max_bond", "fields", "couplings", "seed"]
+        names += [n for n in OPTIONAL if self._optional(n) is not None]
         if self.state != "infinite_temperature":
             names += ["bits"] + [f"state_otoc/{v}" for v in self.probes]
 
@@ -731,12 +802,12 @@ class Ensemble:
             f.attrs["fingerprint"] = self._desc.fingerprint()
             f.attrs["engine"] = _json(self.engine)
             f.attrs["source_versions"] = _json(sorted({str(x) for x in self.meta.get("versions", [self.version])}))
-            f.create_dataset("times", data=self.times)
-            f.create_dataset("realizations", data=self.realizations)
-            f.create_dataset("wall_time", data=self.wall_time)
-            f.create_dataset("max_step", data=self._get("max_step"))
+            for name, data in (("times", self.times), ("realizations", self.realizations),
+                               ("wall_time", self.wall_time), ("max_step", self._get("max_step"))):
+                _describe(f.create_dataset(name, data=data), name, merged=True)
             for name in names:
-                f.create_dataset(name, data=self._get(name), compression="gzip", shuffle=True)
+                _describe(f.create_dataset(name, data=self._get(name), compression="gzip", shuffle=True), name,
+                          merged=True)
             if self.convergence is not None:
                 _write_convergence_group(f.create_group("convergence"), self.convergence)
 
@@ -915,6 +986,7 @@ def merge(sources: Iterable, out, overwrite: bool = False) -> tuple[Path, Ensemb
 def _combine(ens: list[Ensemble]) -> Ensemble:
     names = [f"otoc/{v}" for v in ens[0].probes] + ["weights", "right_weight", "discarded_weight", "max_bond",
                                                     "fields", "couplings", "seed", "wall_time", "max_step"]
+    names += [n for n in OPTIONAL if all(e._optional(n) is not None for e in ens)]
     if ens[0].state != "infinite_temperature":
         names += ["bits"] + [f"state_otoc/{v}" for v in ens[0].probes]
     order: dict[int, tuple[int, int]] = {}

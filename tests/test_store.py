@@ -233,3 +233,62 @@ def test_load_errors(tmp_path):
     (tmp_path / "x.h5").write_bytes(b"not hdf5")
     with pytest.raises(RunDirectoryError, match="cannot read"):
         load(tmp_path / "x.h5")
+
+
+def test_bond_arrays_round_trip_through_directory_merge_and_xarray(small_run, tmp_path):
+    """bond_discarded and bond_entropy: stored per realization, equal to a direct evolution of the same
+    realization, carried through merge (also of two shards) and to_xarray."""
+    ens = load(small_run)
+    assert ens.bond_discarded.shape == (3, 2, 5) and ens.bond_entropy.shape == (3, 2, 5)
+    d = desc()
+    real = d.realization(1)
+    direct = mf.evolve_otoc(real.chain, "Z", d.site, d.times, settings=d.settings)
+    np.testing.assert_allclose(ens.bond_discarded[1], direct.bond_discarded, rtol=1e-12, atol=1e-15)
+    np.testing.assert_allclose(ens.bond_entropy[1], direct.bond_entropy, rtol=1e-12, atol=1e-14)
+    # the per-bond ledger adds up to the whole-chain one
+    np.testing.assert_allclose(ens.bond_discarded.sum(-1), ens.discarded_weight, rtol=1e-10, atol=1e-15)
+    a, b = tmp_path / "a", tmp_path / "b"
+    run_ensemble(desc(), a, realizations=[0, 2], progress="none")
+    run_ensemble(desc(), b, realizations=[1], progress="none")
+    path, _ = merge([a, b], tmp_path / "m.h5")
+    again = load(path)
+    for name in ("bond_discarded", "bond_entropy"):
+        np.testing.assert_array_equal(getattr(again, name), getattr(ens, name))
+    ds = again.to_xarray()
+    assert ds["bond_entropy"].dims == ("realization", "time", "bond")
+    np.testing.assert_array_equal(ds["bond_discarded"].values, ens.bond_discarded)
+
+
+def test_files_without_bond_arrays_still_load(small_run, tmp_path):
+    import shutil
+
+    old = tmp_path / "old"
+    shutil.copytree(small_run, old)
+    for p in (old / "realizations").glob("*.h5"):
+        with h5py.File(p, "a") as f:
+            del f["bond_discarded"], f["bond_entropy"]
+    ens = load(old)
+    assert ens.bond_discarded is None and ens.bond_entropy is None
+    path, _ = merge([old], tmp_path / "old.h5")
+    assert load(path).bond_entropy is None
+    np.testing.assert_array_equal(load(path).otoc("Z"), ens.otoc("Z"))
+
+
+def test_every_dataset_names_its_axes_units_and_meaning(small_run, tmp_path):
+    path, _ = merge([small_run], tmp_path / "all.h5")
+    for file, merged in ((small_run / "realizations" / "r00000.h5", False), (path, True)):
+        with h5py.File(file) as f:
+            seen = []
+
+            def visit(name, obj):
+                if isinstance(obj, h5py.Dataset):
+                    seen.append(name)
+                    axes = obj.attrs["axes"].split(",") if obj.attrs["axes"] else []
+                    assert len(axes) == obj.ndim, (file, name, axes, obj.shape)
+                    assert obj.attrs["meaning"] and "units" in obj.attrs
+            f.visititems(visit)
+            assert "weights" in seen and "otoc/Z" in seen
+            assert f["weights"].attrs["letters"] == "I,X,Y,Z"
+            assert f["otoc/Z"].attrs["probe"] == "Z"
+            assert f["bond_entropy"].attrs["units"] == "nats"
+            assert f["weights"].attrs["axes"].startswith("realization,") == merged
