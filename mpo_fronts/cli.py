@@ -186,6 +186,13 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--tol", type=_positive_float, default=1e-2,
                    help="largest acceptable |C_engine - C_exact| (default: 0.01)")
     p.add_argument("--json", action="store_true", help="print JSON (default: text)")
+    p.add_argument("--eigenstates", default=None, metavar="FILE.h5",
+                   help="also compute the eigenstate-resolved OTOC C_n(r, t) = 1 - Re <n|W(t) V_r W(t) V_r|n> of "
+                        "every eigenstate at this L, write it to FILE.h5 and print it by energy density beside "
+                        "the infinite-temperature average (default: not computed)")
+    p.add_argument("--probe", type=_probe, default=None,
+                   help="probe V of the eigenstate-resolved OTOC (default: Z if stored, else the first of "
+                        "operators.v)")
 
     p = sub.add_parser("converge", help="run a description at several bond dimensions and compare",
                        description="Run the description at each bond dimension into DIR/chi_016, DIR/chi_032, ... "
@@ -415,11 +422,23 @@ def _cmd_check(args) -> int:
     if args.L > desc.L:
         raise InputError(f"--L = {args.L} exceeds model.L = {desc.L}: the check runs the description's model "
                          f"on a shorter chain; give --L between 2 and {min(desc.L, MAX_DENSE_L)}")
+    if args.eigenstates is not None:
+        _check_output(args.eigenstates, "--eigenstates")
     res = check_against_exact(desc, L=args.L, realizations=args.realizations,
                               progress=None if args.json else (lambda msg: print("  " + msg, flush=True)))
     ok = res.max_deviation <= args.tol
+    eig = None
+    if args.eigenstates is not None:
+        from .workflows import eigenstate_study
+
+        eig = eigenstate_study(desc, L=args.L, realizations=args.realizations, probe=args.probe,
+                               out=args.eigenstates)
     if args.json:
-        print(json.dumps({**res.to_dict(), "tol": args.tol, "ok": ok}, indent=1))
+        extra = {}
+        if eig is not None:
+            extra["eigenstates"] = {k: (v.tolist() if hasattr(v, "tolist") else v) for k, v in eig.items()}
+        print(json.dumps({**res.to_dict(), "tol": args.tol, "ok": ok, **extra}, indent=1, allow_nan=False,
+                         default=str).replace("NaN", "null"))
     else:
         w = res.where
         e = res.engine
@@ -431,7 +450,29 @@ def _cmd_check(args) -> int:
              "largest discarded weight: "
              f"{max(p['discarded_weight'] for p in res.per_realization):.3g} (a deviation with no discarded "
              "weight is Trotter error: lower evolution.dt or use evolution.order = 4)")
+        if eig is not None:
+            _say(*_eigenstate_lines(eig))
     return 0 if ok else 1
+
+
+def _eigenstate_lines(eig: dict) -> list[str]:
+    """The eigenstate-resolved OTOC at the last time, by energy density, beside the infinite-temperature mean."""
+    import numpy as np
+
+    ds = [d for d in eig["distances"] if d >= 1][:8]
+    head = "  energy density      states " + "".join(f"{f'd={d}':>10}" for d in ds)
+    lines = [f"eigenstate-resolved OTOC, probe {eig['probe']}, at t = {eig['times'][-1]:g} (L = {eig['L']}, W at "
+             f"site {eig['site']}, {len(eig['realizations'])} realization(s)); written to {eig['path']}", head]
+    edges = eig["bins"]
+    for b in range(len(edges) - 1):
+        row = eig["by_energy"][b, -1]
+        lines.append(f"  [{edges[b]:.1f}, {edges[b + 1]:.1f}]{'':8}{eig['counts'][b]:>8} "
+                     + "".join(f"{row[d]:>10.4f}" if np.isfinite(row[d]) else f"{'-':>10}" for d in ds))
+    inf = eig["infinite_temperature"][-1]
+    lines.append(f"  all (infinite T){'':3}{sum(eig['counts']):>8} " + "".join(f"{inf[d]:>10.4f}" for d in ds))
+    sp = eig["spread"][-1]
+    lines.append(f"  spread over states{'':10}" + "".join(f"{sp[d]:>10.4f}" for d in ds))
+    return lines
 
 
 def _exceeded_line(res, tol: float) -> str:

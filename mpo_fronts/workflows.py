@@ -20,7 +20,7 @@ from .ensemble import evolve_realization, run_ensemble
 from .errors import InputError
 from .store import RunDirectory
 
-__all__ = ["check_against_exact", "converge", "ExactCheck"]
+__all__ = ["check_against_exact", "converge", "ExactCheck", "eigenstate_study", "ENERGY_BINS"]
 
 
 @dataclass(frozen=True)
@@ -112,6 +112,96 @@ def check_against_exact(description: RunDescription, L: int = 10, realizations: 
     return ExactCheck(max_deviation=worst["max_deviation"], where=worst.get("where", {}), per_realization=per,
                       L=L, site=site, engine=description.engine, times=times.tolist(),
                       deviation_by_time=by_time.tolist())
+
+
+#: Energy-density bins of :func:`eigenstate_study`: epsilon = (E - E_min) / (E_max - E_min) in [0, 1].
+ENERGY_BINS = (0.0, 0.2, 0.4, 0.6, 0.8, 1.0)
+
+
+def eigenstate_study(description: RunDescription, L: int = 10, realizations: int = 1, probe: str | None = None,
+                     out=None, bins: Sequence[float] = ENERGY_BINS) -> dict[str, Any]:
+    """Eigenstate-resolved OTOCs of a description at a small L, beside the infinite-temperature average.
+
+    For realization k (its first ``L`` fields, as :func:`check_against_exact`), every eigenstate |n> of H gives
+    C_n(r, t) = 1 - Re <n|W(t) V_r W(t) V_r|n> (:func:`mpo_fronts.exact.eigenstate_otoc`, dense, L <= 12). The
+    mean over all n is the infinite-temperature C(r, t) (the trace in the eigenbasis). Eigenstates are grouped
+    by energy density epsilon = (E_n - E_min) / (E_max - E_min) into ``bins``.
+
+    Parameters
+    ----------
+    out : path, optional
+        An HDF5 file to write (atomically): ``energies`` (R, 2^L), ``otoc`` (R, n_t, 2^L, L) = C_n(r, t),
+        ``times``, ``fields`` (R, L), and the description, L, site, probe as attributes.
+
+    Returns
+    -------
+    dict
+        ``L``, ``site``, ``probe``, ``times``, ``distances`` (d = 0 .. L-1-site, to the right of W),
+        ``infinite_temperature`` (n_t, n_d): the mean over eigenstates and realizations, ``by_energy``
+        (n_bins, n_t, n_d): the mean within each energy-density bin, ``spread`` (n_t, n_d): the standard deviation
+        over eigenstates, ``bins``, ``counts`` (n_bins,), ``path`` (or None).
+    """
+    from .conventions import default_probe
+    from .exact import MAX_DENSE_L, eigenstate_otoc
+
+    if isinstance(L, bool) or not isinstance(L, int) or not 2 <= L <= MAX_DENSE_L:
+        raise InputError(f"L must be an integer in 2..{MAX_DENSE_L} for eigenstate-resolved OTOCs (dense "
+                         f"diagonalization of 2^L states), got {L!r}", arg="L")
+    if L > description.L:
+        raise InputError(f"L = {L} exceeds the chain length of the description (model.L = {description.L})",
+                         arg="L")
+    if isinstance(realizations, bool) or not isinstance(realizations, int) or realizations < 1:
+        raise InputError(f"realizations must be a positive integer, got {realizations!r}", arg="realizations")
+    probe = (probe or default_probe(description.probes)).upper()
+    edges = np.asarray(bins, dtype=float)
+    if edges.ndim != 1 or edges.size < 2 or np.any(np.diff(edges) <= 0) or edges[0] < 0 or edges[-1] > 1:
+        raise InputError(f"bins must be increasing energy densities in [0, 1], got {list(bins)!r}", arg="bins")
+    site = description.site_at(L)
+    times = description.times
+    ks = list(range(min(realizations, description.realizations)))
+    energies, C, fields = [], [], []
+    for k in ks:
+        real = description.truncated_realization(k, L)
+        e, c = eigenstate_otoc(real.chain, description.w, site, probe, times)
+        energies.append(e)
+        C.append(c)
+        fields.append(np.asarray(real.chain.fields if real.chain.fields is not None else np.full(L, np.nan)))
+    E, C = np.stack(energies), np.stack(C)  # (R, 2^L), (R, n_t, 2^L, L)
+    right = np.arange(site, L)
+    Cd = C[..., right]  # distances d = 0 .. L-1-site
+    eps = (E - E.min(axis=1, keepdims=True)) / np.maximum(np.ptp(E, axis=1, keepdims=True), 1e-300)
+    which = np.clip(np.searchsorted(edges, eps, side="right") - 1, 0, edges.size - 2)
+    by_energy = np.full((edges.size - 1, times.size, right.size), np.nan)
+    counts = np.zeros(edges.size - 1, dtype=int)
+    for b in range(edges.size - 1):
+        sel = which == b  # (R, 2^L)
+        counts[b] = int(sel.sum())
+        if counts[b]:
+            by_energy[b] = np.einsum("rn,rtnd->td", sel, Cd) / counts[b]
+    result = {"L": L, "site": site, "probe": probe, "times": times.tolist(), "distances": list(range(right.size)),
+              "infinite_temperature": Cd.mean(axis=(0, 2)), "by_energy": by_energy,
+              "spread": Cd.transpose(1, 3, 0, 2).reshape(times.size, right.size, -1).std(axis=-1),
+              "bins": edges.tolist(), "counts": counts.tolist(), "realizations": ks, "path": None}
+    if out is not None:
+        import json
+
+        from .store import atomic_h5
+
+        def write(f):
+            f.attrs["description"] = json.dumps(description.to_dict())
+            f.attrs.update({"L": L, "site": site, "w": description.w, "probe": probe,
+                            "meaning": "C_n(r, t) = 1 - Re <n|W(t) V_r W(t) V_r|n> for every eigenstate n of H "
+                                       "(realization k restricted to its first L sites)"})
+            f.create_dataset("times", data=times)
+            f.create_dataset("realizations", data=np.asarray(ks))
+            f.create_dataset("energies", data=E).attrs["axes"] = "realization,eigenstate"
+            f.create_dataset("otoc", data=C, compression="gzip", shuffle=True).attrs["axes"] = \
+                "realization,time,eigenstate,site"
+            f.create_dataset("fields", data=np.stack(fields)).attrs["axes"] = "realization,site"
+
+        Path(out).parent.mkdir(parents=True, exist_ok=True)
+        result["path"] = str(atomic_h5(out, write))
+    return result
 
 
 def converge(description: RunDescription, chis: Sequence[int], out, *, dt: float | None = None,
