@@ -57,7 +57,7 @@ __all__ = [
     "check_times", "check_otoc", "check_threshold", "check_ci", "check_count", "check_curve", "trusted_array",
     "one_side", "typical_value", "ensemble_curve", "ensemble_statistics", "sarle_bimodality", "distribution",
     "crossing_times", "fit_line", "fit_range", "bootstrap_crossings", "light_cone", "front_moments",
-    "front_shape", "front_sites", "probe_otoc", "ensemble_distribution",
+    "front_shape", "front_sites", "probe_otoc", "ensemble_distribution", "reached_site", "DISTRIBUTION_REACH",
 ]
 
 CROSSED, UNREACHED, EARLY, UNTRUSTED = 0, 1, 2, 3
@@ -1190,13 +1190,43 @@ def probe_otoc(ens, probe: str) -> np.ndarray:
     return np.asarray(ens.otoc(probe.upper()), dtype=float)  # the ensemble says if it cannot provide it
 
 
-def ensemble_distribution(ens, r: int | None = None, probe: str = "Z", **opts) -> dict[str, Any]:
-    """:func:`distribution` of C at site ``r`` (default: halfway along the longer side of W)."""
+#: Default level that the ensemble-median C must reach at a distance for the distribution figure to use it.
+DISTRIBUTION_REACH = 0.1
+
+
+def reached_site(C, site: int, reach: float = DISTRIBUTION_REACH) -> int:
+    """The default site of the distribution of C: a distance that the front reaches within the data.
+
+    On the longer side of W (:func:`one_side`), d_reach is the largest distance d >= 1 at which the median of C
+    over realizations reaches ``reach`` (default 0.1, on the [0, 2] scale) at some output time (d = 1 when none
+    does), and d_half the distance halfway along that side. The site at distance min(d_half, d_reach) is
+    returned: halfway along the chain when the front gets there, else the farthest distance it reaches, so the
+    distribution is not drawn where C stays zero at every time.
+    """
+    a = check_otoc(C)
+    if isinstance(reach, bool) or not isinstance(reach, Real) or not 0 < reach <= 2:
+        raise InputError(f"reach must be a number in (0, 2] on the scale of C, got {reach!r}", arg="reach")
+    cols, d, _ = one_side(a.shape[2], site)
+    if cols.size == 1:
+        return int(cols[0])
+    reached = np.flatnonzero(np.max(np.median(a[:, :, cols], axis=0), axis=0) >= reach)
+    reached = reached[reached >= 1]
+    d_reach = int(reached.max()) if reached.size else 1
+    return int(cols[min(len(cols) // 2, d_reach)])
+
+
+def ensemble_distribution(ens, r: int | None = None, probe: str = "Z", *, reach: float = DISTRIBUTION_REACH,
+                          **opts) -> dict[str, Any]:
+    """:func:`distribution` of C at site ``r``.
+
+    The default ``r`` is halfway along the longer side of W, or nearer where the front does not get that far:
+    the farthest distance at which the ensemble-median C reaches ``reach`` (default 0.1) within the data (see
+    :func:`reached_site`).
+    """
     C = probe_otoc(ens, probe)
     L = C.shape[2]
     if r is None:
-        cols, _, _ = one_side(L, int(ens.site))
-        r = int(cols[len(cols) // 2])
+        r = reached_site(C, int(ens.site), reach)
     if isinstance(r, bool) or not isinstance(r, Integral) or not 0 <= r < L:
         raise InputError(f"r (the probe site) must be an integer in 0..{L - 1}, got {r!r}", arg="r")
     out = distribution(C[:, :, int(r)], ens.times, **opts)

@@ -10,13 +10,15 @@ Figures (names for ``only``):
 
 * ``heatmap``: ensemble-mean C(r, t) on a log-time axis, threshold contours of the mean and median curves,
   untrusted points hatched;
-* ``distribution``: per-realization C at one site as a density over time, with mean, median and Sarle's
-  bimodality coefficient;
+* ``distribution``: per-realization C at one site (by default one the front reaches) as a density over time,
+  with mean, median and Sarle's bimodality coefficient;
 * ``light_cone``: t*(d) of the ensemble curve and of every realization, with the ballistic and logarithmic
   fits and their bands, on linear and logarithmic time axes;
 * ``convergence``: the largest |dC| between successive bond dimensions, at, ahead of and behind the front
   (needs convergence data, see ``fronts converge``);
-* ``front``: right-weight profiles at several times and the front width against time on log axes.
+* ``front``: right-weight profiles at several times and the front width against time on log axes;
+* ``growth``: the local growth exponent alpha = d ln C / d ln t per distance (median and interquartile band) and
+  the histogram of the exponents of the growth stages (see :mod:`mpo_fronts.growth`).
 """
 
 from __future__ import annotations
@@ -31,7 +33,7 @@ from . import trust
 from .errors import InputError, require
 
 __all__ = ["FIGURES", "plot_heatmap", "plot_distribution", "plot_light_cone", "plot_convergence", "plot_front",
-           "write_figures"]
+           "plot_growth", "write_figures"]
 
 _FORMATS = ("png", "pdf", "svg")
 _C_LABEL = "C(r, t) = 1 - Re Tr[W(t) V_r W(t) V_r] / 2^L"
@@ -167,18 +169,30 @@ def plot_heatmap(ens, threshold: float = 0.5, probe: str = "Z", *, levels: Seque
     return fig
 
 
-def plot_distribution(ens, r: int | None = None, probe: str = "Z", *, bins: int = 40):
-    """Distribution of C(r, t) over realizations at one site r, as a density over time.
+def plot_distribution(ens, r: int | Sequence[int] | None = None, probe: str = "Z", *, bins: int = 40):
+    """Distribution of C(r, t) over realizations at one site r (or several, side by side), as a density over time.
 
     Top: histogram density (viridis) with the mean (solid) and median (dashed). Bottom: Sarle's bimodality
-    coefficient with its uniform-distribution value 5/9 (dotted).
+    coefficient with its uniform-distribution value 5/9 (dotted). ``r`` is a site or a sequence of sites (one
+    column each); the default is a distance that the front reaches within the data
+    (:func:`mpo_fronts.analysis.reached_site`).
     """
-    dist = an.ensemble_distribution(ens, r=r, probe=probe, bins=bins)
+    sites = [r] if r is None or isinstance(r, (int, np.integer)) else list(r)
+    if not sites:
+        raise InputError("r must be a site, a non-empty sequence of sites or None (the default)", arg="r")
+    dists = [an.ensemble_distribution(ens, r=s, probe=probe, bins=bins) for s in sites]
+    fig, axes = _figure(1.0 + 5.4 * len(dists), 5.2, ncols=len(dists), nrows=2, sharex=True,
+                        gridspec_kw={"height_ratios": [3, 1]})
+    for j, dist in enumerate(dists):
+        _distribution_panel(fig, axes[0, j], axes[1, j], ens, dist, probe)
+    return fig
+
+
+def _distribution_panel(fig, ax, bx, ens, dist: dict, probe: str):
+    """One column of :func:`plot_distribution`: the density over time (ax) and the bimodality (bx)."""
     t = dist["times"]
     keep = _positive_times(t)
     t = t[keep]
-    fig, axes = _figure(6.4, 5.2, nrows=2, sharex=True, gridspec_kw={"height_ratios": [3, 1]})
-    ax, bx = axes[0, 0], axes[1, 0]
     te = _log_edges(t)
     dens = dist["density"][keep]
     from matplotlib.colors import PowerNorm
@@ -350,12 +364,111 @@ def plot_front(ens, n_profiles: int = 6, **opts):
     return fig
 
 
+def _growth_distances(g, n_max: int) -> list[int]:
+    """Up to ``n_max`` distances d >= 1, evenly spread, at which the median alpha is defined somewhere."""
+    have = [int(j) for j in np.flatnonzero(np.any(np.isfinite(g.median), axis=0)) if g.d[j] >= 1]
+    if len(have) <= n_max:
+        return [int(g.d[j]) for j in have]
+    pick = np.unique(np.round(np.linspace(0, len(have) - 1, n_max)).astype(int))
+    return [int(g.d[have[k]]) for k in pick]
+
+
+def plot_growth(ens, probe: str = "Z", *, distances: Sequence[int] | None = None, growth=None, n_max: int = 5,
+                use_trust: bool = True, max_discarded: float = trust.DEFAULT_MAX_DISCARDED, fig=None, **opts):
+    """Local growth exponent alpha(t) = d ln C / d ln t per distance, and the histogram of stage exponents.
+
+    Left: median of alpha over realizations (line) and its interquartile band, one colour and line style per
+    distance, with the lowest-order value 2d dotted in the same colour. Right: histogram of the stage exponents
+    of every realization and distance drawn, the early stages and the later (last of two or more) stages
+    apart. See :mod:`mpo_fronts.growth` for the method.
+
+    Parameters
+    ----------
+    ens : loaded ensemble (see :func:`mpo_fronts.load`)
+    probe : {'X', 'Y', 'Z'}
+    distances : sequence of int, optional
+        Distances d = |r - i| to draw (default: up to ``n_max`` evenly spread ones where alpha is defined).
+    growth : mpo_fronts.growth.Growth, optional
+        A precomputed :func:`mpo_fronts.growth.ensemble_growth` (else computed here, on trusted points).
+    use_trust, max_discarded
+        Trust mask as in :func:`plot_heatmap`.
+    fig : matplotlib.figure.Figure, optional
+        Draw into this (empty) figure instead of a new one.
+    **opts
+        Passed to :func:`mpo_fronts.growth.ensemble_growth` (``window``, ``tol``, ...).
+    """
+    from .growth import ensemble_growth
+
+    source = getattr(growth, "trusted_source", "")
+    if growth is None:
+        mask, info = trust.trust_mask(ens, use_trust, max_discarded, probe)
+        growth = ensemble_growth(ens, probe, trusted=mask, **opts)
+        source = info["source"]
+    g = growth
+    if distances is None:
+        ds = _growth_distances(g, n_max)
+    else:
+        ds = [int(v) for v in distances]
+        bad = [v for v in ds if v not in set(int(x) for x in g.d)]
+        if bad or not ds:
+            raise InputError(f"distances must be a non-empty list among 0..{int(g.d[-1])} (distances on the "
+                             f"{g.side} side of W), got {list(distances)!r}", arg="distances")
+    if fig is None:
+        fig, axes = _figure(9.6, 4.0, ncols=2, gridspec_kw={"width_ratios": [3, 2]})
+        ax, bx = axes[0]
+    else:
+        ax, bx = fig.subplots(1, 2, gridspec_kw={"width_ratios": [3, 2]})
+    keep = _positive_times(g.times)
+    t = g.times[keep]
+    styles = ("-", "--", "-.", ":", (0, (5, 1, 1, 1)))
+    markers = "os^Dv"
+    for k, (dd, c) in enumerate(zip(ds, _colors(len(ds), "viridis", 0.0, 0.85))):
+        j = int(np.flatnonzero(g.d == dd)[0])
+        med = g.median[keep, j]
+        ax.fill_between(t, g.q25[keep, j], g.q75[keep, j], color=c, alpha=0.2, lw=0)
+        ax.plot(t, med, color=c, ls=styles[k % len(styles)], marker=markers[k % len(markers)], ms=3, lw=1.4,
+                label=f"d = {dd}")
+        if dd >= 1:
+            ax.axhline(2 * dd, color=c, ls=(0, (1, 3)), lw=0.9)
+    ax.set_xscale("log")
+    ax.set_xlabel(_T_LABEL)
+    ax.set_ylabel(r"$\alpha = d\,\ln C / d\,\ln t$ (median, interquartile band)")
+    if ds:
+        ax.legend(fontsize=7, loc="best", title="dotted: 2d", title_fontsize=7)
+    else:
+        ax.text(0.5, 0.5, "alpha is not defined at any distance d >= 1 (C below the floor or untrusted)",
+                ha="center", va="center", transform=ax.transAxes, fontsize=8, color="0.3")
+    st = g.stages
+    cols = np.isin(st.column, [int(np.flatnonzero(g.d == dd)[0]) for dd in ds])
+    last = st.n_stages[st.realization, st.column] - 1
+    early = st.exponent[cols & st.is_early & np.isfinite(st.exponent)]
+    later = st.exponent[cols & (st.index == last) & (last >= 1) & np.isfinite(st.exponent)]
+    both = np.concatenate([early, later])
+    if both.size:
+        edges = np.histogram_bin_edges(both, bins=min(30, max(5, both.size // 2)))
+        ce, cl = _colors(2, lo=0.15, hi=0.7)
+        bx.hist(early, bins=edges, histtype="stepfilled", color=ce, alpha=0.5, label=f"early stages ({early.size})")
+        if later.size:
+            bx.hist(later, bins=edges, histtype="step", color=cl, lw=1.6, hatch="//",
+                    label=f"later stages ({later.size})")
+        bx.legend(fontsize=7, loc="best", title_fontsize=7,
+                  title=None if later.size else "no later stage\n(one stage per curve,\nor none trusted)")
+    else:
+        bx.text(0.5, 0.5, "no stage found", ha="center", va="center", transform=bx.transAxes, fontsize=8,
+                color="0.3")
+    bx.set_xlabel("stage exponent (slope of ln C vs ln t)")
+    bx.set_ylabel("count (realizations x distances)")
+    fig.suptitle(f"{_title(ens, g.probe)}; growth stages, {g.side} side, trust: {source}", fontsize=8)
+    return fig
+
+
 FIGURES: dict[str, Callable[..., Any]] = {
     "heatmap": plot_heatmap,
     "distribution": plot_distribution,
     "light_cone": plot_light_cone,
     "convergence": plot_convergence,
     "front": plot_front,
+    "growth": plot_growth,
 }
 
 
@@ -377,7 +490,7 @@ def _check_only(only) -> list[str]:
 
 
 def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshold: float = 0.5, probe: str = "Z",
-                  formats: Sequence[str] = ("png", "pdf"), *, r: int | None = None, dpi: int = 150,
+                  formats: Sequence[str] = ("png", "pdf"), *, r: int | Sequence[int] | None = None, dpi: int = 150,
                   n_boot: int = 500, seed: int = 0, use_trust: bool = True,
                   max_discarded: float = trust.DEFAULT_MAX_DISCARDED, color_scale: str = "linear") -> list[Path]:
     """Write the figures of a loaded ensemble to ``outdir``, one file per figure and format.
@@ -388,15 +501,16 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
     outdir : path
         Created if missing; files are named ``<figure>.<format>``.
     only : str or iterable of str, optional
-        Figure names (``heatmap``, ``distribution``, ``light_cone``, ``convergence``, ``front``); default
+        Figure names (``heatmap``, ``distribution``, ``light_cone``, ``convergence``, ``front``, ``growth``); default
         all. Without convergence data the ``convergence`` figure is skipped unless asked for by name, which is
         an error.
     threshold : float
         theta on the [0, 2] scale of C, for contours and crossing times.
     probe : {'X', 'Y', 'Z'}
     formats : sequence of {'png', 'pdf', 'svg'}
-    r : int, optional
-        Probe site of the distribution figure (default halfway along the longer side of W).
+    r : int or sequence of int, optional
+        Probe site(s) of the distribution figure (default: halfway along the longer side of W, or the farthest
+        distance the front reaches if nearer; see :func:`mpo_fronts.analysis.reached_site`).
     dpi : int
         Resolution of PNG files.
     n_boot, seed
@@ -441,6 +555,8 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
             fig = plot_light_cone(ens, threshold, probe, lc=lc)
         elif name == "convergence":
             fig = plot_convergence(ens, threshold, probe)
+        elif name == "growth":
+            fig = plot_growth(ens, probe, use_trust=use_trust, max_discarded=max_discarded)
         else:
             fig = plot_front(ens, n_boot=n_boot, seed=seed, use_trust=use_trust, max_discarded=max_discarded)
         for fmt in fmts:

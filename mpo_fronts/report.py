@@ -13,11 +13,12 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .analysis import CROSSED, LAWS, STATUS_NAMES, Record, ensemble_distribution
+from .analysis import CROSSED, LAWS, STATUS_NAMES, Record, crossing_times, ensemble_distribution, one_side
+from .growth import ensemble_growth, growth_summary
 from .trust import (DEFAULT_MAX_DISCARDED, DEFAULT_TSTAR_TOL, LARGE_DISCARDED_WEIGHT, discarded_weight_warnings,
-                    ensemble_front, ensemble_light_cone)
+                    ensemble_front, ensemble_light_cone, trust_mask)
 
-__all__ = ["summarize", "format_summary", "jsonable"]
+__all__ = ["summarize", "format_summary", "jsonable", "configuration_crossings"]
 
 
 def jsonable(obj):
@@ -51,6 +52,38 @@ _FIT_KEYS = ("law", "parameter", "units", "value", "ci_low", "ci_high", "ci", "c
 def _half_widths(err) -> np.ndarray:
     """Largest of the two sides of a (2, n_d) error array, per distance."""
     return np.max(np.asarray(err, dtype=float), axis=0)
+
+
+def configuration_crossings(ens, threshold: float, probe: str, side: str = "auto", trusted=None
+                            ) -> list[dict[str, Any]] | None:
+    """Crossing times per basis state of a product-state run, side by side (None at infinite temperature).
+
+    For each state s (named as in ``state.bits`` / ``state.configurations``), the mean over realizations of
+    the product-state OTOC 1 - Re <s|W(t) V_r W(t) V_r|s> and its first crossing of ``threshold`` at each
+    distance d on ``side`` of W (untrusted points as in the summary's trust mask).
+
+    Returns
+    -------
+    list of dict or None
+        ``name``, ``bits`` (of the first realization; ``random`` states differ between realizations, see
+        ``bits_vary``), ``bits_vary``, ``distances``, ``tstar`` (None where C never reaches the threshold),
+        ``status``.
+    """
+    if getattr(ens, "state", "infinite_temperature") == "infinite_temperature":
+        return None
+    S = np.asarray(ens.state_otoc(probe), dtype=float)  # (R, n_states, n_t, L)
+    bits = np.asarray(ens.bits)
+    names = list(getattr(ens, "state_names", None) or [f"state{i}" for i in range(S.shape[1])])
+    cols, d, _ = one_side(int(ens.L), int(ens.site), side)
+    mask = None if trusted is None else np.broadcast_to(trusted, S[:, 0].shape).all(axis=0)[:, cols]
+    out = []
+    for i, name in enumerate(names):
+        curve = S[:, i].mean(axis=0)[:, cols]
+        cr = crossing_times(ens.times, curve, threshold, trusted=mask)
+        out.append({"name": name, "bits": str(bits[0, i]), "bits_vary": bool(np.any(bits[:, i] != bits[0, i])),
+                    "distances": d, "tstar": np.where(cr.status == CROSSED, cr.tstar, np.nan),
+                    "status": [STATUS_NAMES[int(x)] for x in cr.status]})
+    return out
 
 
 def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "mean", side: str = "auto",
@@ -93,7 +126,10 @@ def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "me
         ``law_comparison``; ``crossings``: ``distances``, ``tstar`` of the curve, ``t_low`` and ``t_high``
         (the interval of each t*, None where there is no crossing), ``status`` names, ``t_errors`` (half-widths
         per part: statistical, truncation, trotter, interpolation), ``error_budget`` (words),
-        ``tstar_boot_std``, per-realization status counts; ``front`` (width exponent); ``distribution``
+        ``tstar_boot_std``, per-realization status counts; ``front`` (width exponent); ``growth`` (per
+        distance d >= 1, ``early_exponent``, ``early_exponent_ci``, ``stages``, ...; see
+        :func:`mpo_fronts.growth.growth_summary`); ``configurations`` (product-state runs: crossing times per
+        basis state side by side, :func:`configuration_crossings`; None at infinite temperature); ``distribution``
         (largest bimodality at one site); ``trust`` (criteria, trusted fraction); ``warnings`` (list of
         str, empty when nothing is wrong); ``largest_discarded_weight``, ``largest_bond``, ``engine``,
         ``description``. Non-finite numbers become None.
@@ -116,6 +152,9 @@ def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "me
     fr = ensemble_front(ens, use_trust=use_trust, max_discarded=max_discarded, n_boot=n_boot, ci=ci, seed=seed)
     we = fr["width_exponent"]
     dist = ensemble_distribution(ens, probe=probe)
+    g_mask, _ = trust_mask(ens, use_trust, max_discarded, probe, max_lost=max_lost)
+    growth = growth_summary(ensemble_growth(ens, probe, side=lc["side"], trusted=g_mask), n_boot=n_boot, ci=ci,
+                            seed=seed)
     bim = dist["bimodality"]
     k_max = int(np.nanargmax(bim)) if np.any(np.isfinite(bim)) else None
     cross = lc["crossings"]
@@ -179,7 +218,11 @@ def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "me
         "distribution": {"r": dist["r"], "d": dist["d"], "measure": "Sarle's bimodality coefficient "
                          "(SAS/STAT PROC CLUSTER; Pfister et al. 2013); > 5/9 suggests two modes",
                          "max_bimodality": bim[k_max] if k_max is not None else None,
-                         "t_at_max": float(ens.times[k_max]) if k_max is not None else None},
+                         "t_at_max": float(ens.times[k_max]) if k_max is not None else None,
+                         "site_rule": "halfway along the longer side of W, or the farthest distance at which the "
+                         "median C reaches 0.1 if nearer (analysis.reached_site)"},
+        "growth": growth,
+        "configurations": configuration_crossings(ens, lc["threshold"], lc["probe"], lc["side"], g_mask),
         "trust": lc["trust"],
         "trusted_fraction": lc["trust"]["trusted_fraction"],
         "warnings": warnings,
@@ -234,6 +277,53 @@ def _crossing_lines(d: Mapping[str, Any]) -> list[str]:
         lines.append(f"{'d = ' if n else 'every distance, d = '}{dist[n]}..{dist[-1]}: unreached within "
                      f"t <= {_fmt(t_hi, '.3f')}")
     return lines
+
+
+def _configuration_lines(confs, threshold) -> list[str]:
+    """Crossing times per basis state of a product-state run, one column per state."""
+    if not confs:
+        return []
+    names = [c["name"] if len(c["name"]) <= 12 else c["name"][:11] + "~" for c in confs]
+    out = ["", f"crossing times t* of C = {_fmt(threshold, 'g')} per basis state (mean over realizations of "
+               "1 - Re <s|W(t) V_r W(t) V_r|s>; '-': not reached)",
+           "      d " + "".join(f"{n:>13}" for n in names)]
+    for j, dist in enumerate(confs[0]["distances"]):
+        out.append(f"{int(dist):>7} " + "".join(f"{_fmt(c['tstar'][j], '.3f'):>13}" for c in confs))
+    vary = [c["name"] for c in confs if c.get("bits_vary")]
+    shown = ", ".join(f"{c['name']} = {c['bits']}" for c in confs if not c.get("bits_vary"))
+    out.append(f"  states: {shown}" + (f"; {', '.join(vary)}: drawn per realization" if vary else ""))
+    return out
+
+
+def _growth_lines(g: Mapping[str, Any]) -> list[str]:
+    """The growth stages per distance: early exponent against 2d, later exponent, stages of the median curve."""
+    rows = g.get("distances") or []
+    if not rows:
+        return []
+    lvl = f"{int(round(100 * g.get('ci_level', 0.95)))}%"
+    n = len(rows)
+    while n > 0 and not rows[n - 1].get("n_early"):
+        n -= 1
+    out = ["", f"growth stages (probe {g.get('probe')}; alpha = d ln C / d ln t, stages where alpha stays on a "
+               f"plateau; see mpo_fronts.growth); 2d: the lowest-order exponent where W(t) reaches distance d at "
+               "order t^d (XXZ chains)"]
+    if n:
+        out.append(f"{'d':>4}{'2d':>4}{'early':>9}  {f'{lvl} interval':<20}{'t range (1/J)':<16}{'later':>8}"
+                   f"{'n':>4}  stages of the median curve (exponent over t range)")
+    for r in rows[:n]:
+        ci_ = r.get("early_exponent_ci") or [None, None]
+        tr_ = r.get("early_t_range") or [None, None]
+        le = r.get("later_exponent") or {}
+        st = "; ".join(f"{_fmt(s.get('exponent'), '.2f')} over {_fmt(s.get('t_start'), '.3g')}.."
+                       f"{_fmt(s.get('t_end'), '.3g')}" for s in r.get("stages") or []) or "-"
+        out.append(f"{r['d']:>4}{r.get('lowest_order', ''):>4}{_fmt(r.get('early_exponent'), '.3f'):>9}  "
+                   f"{_interval(ci_[0], ci_[1], '.3f'):<20}"
+                   f"{_fmt(tr_[0], '.3g') + '..' + _fmt(tr_[1], '.3g'):<16}{_fmt(le.get('median'), '.3f'):>8}"
+                   f"{_fmt(le.get('n'), 'd'):>4}  {st}")
+    if n < len(rows):
+        out.append(f"{'d = ' if n else 'every distance, d = '}{rows[n]['d']}..{rows[-1]['d']}: no early stage "
+                   "(C below the floor, untrusted, or no plateau)")
+    return out
 
 
 def format_summary(d: Mapping[str, Any]) -> str:
@@ -330,6 +420,8 @@ def format_summary(d: Mapping[str, Any]) -> str:
         lines.append(f"bimodality at r = {dist.get('r')} (d = {dist.get('d')}): max "
                      f"{_fmt(dist.get('max_bimodality'), '.3f')} at t = {_fmt(dist.get('t_at_max'), '.3f')} "
                      "(Sarle's coefficient, > 5/9 suggests two modes)")
+    lines += _growth_lines(d.get("growth") or {})
+    lines += _configuration_lines(d.get("configurations"), d.get("threshold"))
     if eng:
         lines.append("engine: " + ", ".join(f"{k} = {_fmt(v, 'g', 'none')}" for k, v in eng.items()))
     return "\n".join(lines)
