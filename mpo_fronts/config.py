@@ -14,7 +14,8 @@ Tables and keys (defaults in brackets)::
                         excludes W), couplings (one list of L-1 values, or one list per realization)
                   mixed_field_ising (Pauli units): J [1.0], g [1.05], h [0.5]
     [operators]   w ["Z"], site [0] (integer or "center" = L // 2), v [["X", "Y", "Z"]] (probes to store)
-    [state]       kind ["infinite_temperature"] | "product" (needs bits = "0101...", '0' = spin up)
+    [state]       kind ["infinite_temperature"] | "product" (bits = "0101..." or a list of bitstrings, '0' = spin
+                  up, and/or configurations = named families, see CONFIGURATIONS; computed side by side)
                   | "random_product" (samples [1] random basis states per realization)
     [times]       values = [...] (strictly increasing, >= 0), or start, stop, num, spacing ["log"] | "linear"
     [evolution]   chi [64], dt [0.05], order [2], cutoff [0.0], chunk [20], truncation ["svd"] (or "rsvd", "eigh")
@@ -25,7 +26,9 @@ Tables and keys (defaults in brackets)::
 Random numbers (sharding independent): realization k uses the generator
 ``numpy.random.default_rng(numpy.random.SeedSequence([k, seed]))``. For the XXZ chain with W > 0 it first draws
 the L fields (``rng.uniform(-W, W, size=L)``); for ``state.kind = "random_product"`` it then draws the
-``samples`` bitstrings (``rng.integers(0, 2, size=(samples, L))``, '0' = spin up). The results therefore do not
+``samples`` bitstrings (``rng.integers(0, 2, size=(samples, L))``, '0' = spin up), or for the ``random``
+configuration of ``state.configurations`` one bitstring (``rng.integers(0, 2, size=L)``, after the fields). The
+results therefore do not
 depend on worker count, shard layout or order, and realization k of a longer run equals realization k of a
 shorter one.
 
@@ -55,12 +58,12 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .errors import ConfigError
+from .errors import ConfigError, InputError
 from .models import Chain, mixed_field_ising_chain, xxz_chain
 from .settings import SETTINGS_KEYS, EvolutionSettings
 
 __all__ = ["RunDescription", "Realization", "read_description", "parse_description", "realization_rng",
-           "SCHEMA", "MODEL_KINDS", "STATE_KINDS"]
+           "SCHEMA", "MODEL_KINDS", "STATE_KINDS", "CONFIGURATIONS", "configuration_bits"]
 
 MODEL_KINDS = ("xxz", "mixed_field_ising")
 STATE_KINDS = ("infinite_temperature", "product", "random_product")
@@ -70,7 +73,7 @@ _MODEL_PARAMS = {"xxz": ("J", "delta", "W", "fields", "couplings"), "mixed_field
 SCHEMA: dict[str, tuple[str, ...]] = {
     "model": ("kind", "L", "J", "delta", "W", "fields", "couplings", "g", "h"),
     "operators": ("w", "site", "v"),
-    "state": ("kind", "bits", "samples"),
+    "state": ("kind", "bits", "samples", "configurations"),
     "times": ("values", "start", "stop", "num", "spacing"),
     "evolution": SETTINGS_KEYS,
     "ensemble": ("realizations", "seed"),
@@ -225,6 +228,41 @@ def _parse_operators(o: dict, L: int) -> dict:
     return {"w": w, "site": site, "v": probes}
 
 
+#: Named basis-state families of ``state.configurations`` ('0' = spin up, '1' = spin down; names are ours).
+CONFIGURATIONS = {
+    "all_up": "every spin up (also every spin between W and any probe V)",
+    "neel": "alternating, 0101...",
+    "pairs": "pairs of equal spins, 0011 0011 ...",
+    "domain_wall": "up on sites 0 .. L//2 - 1, down from L//2 on",
+    "random": "one random basis state per realization, drawn from its seed after the fields",
+}
+
+
+def configuration_bits(name: str, L: int, rng: np.random.Generator | None = None) -> str:
+    """The bitstring of a named configuration on L sites (``random`` needs the realization's generator)."""
+    if name == "all_up":
+        return "0" * L
+    if name == "neel":
+        return ("01" * L)[:L]
+    if name == "pairs":
+        return ("0011" * L)[:L]
+    if name == "domain_wall":
+        return "0" * (L // 2) + "1" * (L - L // 2)
+    if name == "random":
+        if rng is None:
+            raise InputError("the 'random' configuration needs the realization's generator", arg="rng")
+        return "".join("01"[b] for b in rng.integers(0, 2, size=L))
+    raise InputError(f"unknown configuration {name!r}{_suggest(name, CONFIGURATIONS)} (named configurations: "
+                     f"{', '.join(CONFIGURATIONS)})", arg="name")
+
+
+def _check_bits(key: str, bits, L: int) -> str:
+    if not isinstance(bits, str) or len(bits) != L or set(bits) - {"0", "1"}:
+        raise ConfigError(key, f"expected a string of L = {L} characters '0' (spin up) / '1' (spin down), got "
+                               f"{bits!r}")
+    return bits
+
+
 def _parse_state(s: dict, L: int) -> dict:
     _check_keys("state", s, SCHEMA["state"])
     kind = _str("state.kind", s.get("kind", "infinite_temperature"), STATE_KINDS)
@@ -232,21 +270,41 @@ def _parse_state(s: dict, L: int) -> dict:
     if kind == "product":
         if "samples" in s:
             raise ConfigError("state.samples", "only used with state.kind = 'random_product'")
-        if "bits" not in s:
-            raise ConfigError("state.bits", f"missing; state.kind = 'product' needs bits, a string of L = {L} "
-                                            "characters '0' (spin up) / '1' (spin down)")
-        bits = s["bits"]
-        if not isinstance(bits, str) or len(bits) != L or set(bits) - {"0", "1"}:
-            raise ConfigError("state.bits", f"expected a string of L = {L} characters '0' (spin up) / '1' "
-                                            f"(spin down), got {bits!r}")
-        out["bits"] = bits
-    elif kind == "random_product":
+        if "bits" not in s and "configurations" not in s:
+            raise ConfigError("state.bits", f"missing; state.kind = 'product' needs bits (a string of L = {L} "
+                                            "characters '0' spin up / '1' spin down, or a list of them) or "
+                                            f"configurations (a list among {', '.join(CONFIGURATIONS)})")
         if "bits" in s:
-            raise ConfigError("state.bits", "only used with state.kind = 'product'")
+            bits = s["bits"]
+            if isinstance(bits, list):
+                if not bits:
+                    raise ConfigError("state.bits", "an empty list; give at least one bitstring")
+                out["bits"] = [_check_bits(f"state.bits[{i}]", b, L) for i, b in enumerate(bits)]
+            else:
+                out["bits"] = _check_bits("state.bits", bits, L)
+        if "configurations" in s:
+            names = s["configurations"]
+            if isinstance(names, str):
+                names = [names]
+            if not isinstance(names, list) or not names or not all(isinstance(n, str) for n in names):
+                raise ConfigError("state.configurations", f"expected a list of names among "
+                                                          f"{', '.join(CONFIGURATIONS)}, got {names!r}")
+            for i, n in enumerate(names):
+                if n not in CONFIGURATIONS:
+                    raise ConfigError(f"state.configurations[{i}]", f"unknown configuration {n!r}"
+                                      f"{_suggest(n, CONFIGURATIONS)} (named configurations: "
+                                      f"{', '.join(CONFIGURATIONS)})")
+            if len(set(names)) != len(names):
+                raise ConfigError("state.configurations", f"lists a configuration twice: {names!r}")
+            out["configurations"] = list(names)
+    elif kind == "random_product":
+        for key in ("bits", "configurations"):
+            if key in s:
+                raise ConfigError(f"state.{key}", "only used with state.kind = 'product'")
         out["samples"] = _int("state.samples", s.get("samples", 1), 1,
                               "a positive integer (random basis states per realization)")
     else:
-        for key in ("bits", "samples"):
+        for key in ("bits", "samples", "configurations"):
             if key in s:
                 raise ConfigError(f"state.{key}", "not used with state.kind = 'infinite_temperature'")
     return out
@@ -507,6 +565,20 @@ class RunDescription:
         return self._data["state"]["kind"]
 
     @property
+    def state_names(self) -> tuple[str, ...] | None:
+        """Names of the basis states of a product-state run, in the order of ``Realization.bits``: each given
+        bitstring under its own bits, then the named configurations; ``random_product`` samples are
+        ``sample0``, ``sample1``, ...; None at infinite temperature."""
+        st = self._data["state"]
+        if st["kind"] == "product":
+            given = st.get("bits", [])
+            given = [given] if isinstance(given, str) else list(given)
+            return tuple(given) + tuple(st.get("configurations", []))
+        if st["kind"] == "random_product":
+            return tuple(f"sample{i}" for i in range(st["samples"]))
+        return None
+
+    @property
     def settings(self) -> EvolutionSettings:
         """The evolution settings (the ``[evolution]`` table) as the frozen object the engine takes."""
         return EvolutionSettings(**self._data["evolution"])
@@ -571,7 +643,9 @@ class RunDescription:
         else:
             chain = mixed_field_ising_chain(L, J=m["J"], g=m["g"], h=m["h"])
         if st["kind"] == "product":
-            bits: tuple[str, ...] | None = (st["bits"],)
+            given = st.get("bits", [])
+            bits: tuple[str, ...] | None = tuple([given] if isinstance(given, str) else given) + tuple(
+                configuration_bits(n, L, rng) for n in st.get("configurations", []))
         elif st["kind"] == "random_product":
             draws = rng.integers(0, 2, size=(st["samples"], L))
             bits = tuple("".join("01"[b] for b in row) for row in draws)

@@ -685,6 +685,7 @@ class Ensemble:
         self.w = self._desc.w
         self.probes = self._desc.probes
         self.state = self._desc.state_kind
+        self.state_names = self._desc.state_names
         self.model = self._desc.kind
         self.version = meta.get("version")
         self.conventions = meta.get("conventions")

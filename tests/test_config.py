@@ -178,7 +178,7 @@ _NON_DEFAULT = {
     "model": {"kind": "mixed_field_ising", "L": 9, "J": 0.5, "delta": 0.5, "W": 1.5,
               "fields": [0.1] * 8, "couplings": [0.9] * 7, "g": 0.7, "h": 0.2},
     "operators": {"w": "X", "site": 3, "v": ["Y"]},
-    "state": {"kind": "random_product", "bits": "01010101", "samples": 2},
+    "state": {"kind": "random_product", "bits": "01010101", "samples": 2, "configurations": ["neel"]},
     "times": {"values": [0.25, 0.5], "start": 0.2, "stop": 3.0, "num": 5, "spacing": "linear"},
     "evolution": {"chi": 7, "dt": 0.02, "order": 4, "cutoff": 1e-9, "chunk": 3, "truncation": "rsvd"},
     "ensemble": {"realizations": 3, "seed": 11},
@@ -191,7 +191,7 @@ def _minimal_with(table, key, value):
     d = {"model": {"kind": "xxz", "L": 8}, "times": {"values": [0.5, 1.0]}}
     if table == "model" and key in ("g", "h"):
         d["model"]["kind"] = "mixed_field_ising"
-    if table == "state" and key == "bits" and value is not None:
+    if table == "state" and key in ("bits", "configurations") and value is not None:
         d["state"] = {"kind": "product"}
     if table == "times" and key != "values":
         d["times"] = {"start": 0.1, "stop": 2.0, "num": 4}
@@ -298,3 +298,39 @@ def test_production_example_documents_every_key():
     for table, keys in SCHEMA.items():
         for key in keys:
             assert re.search(rf"^(# )?{key} = ", body[table], flags=re.M), f"{table}.{key} is not documented"
+
+
+def with_state(state):
+    d = base()
+    d["state"] = state
+    return d
+
+
+def test_configuration_sets_resolve_to_named_bitstrings():
+    """state.configurations: named families beside given bitstrings; the bitstrings follow the documented
+    definitions (written out here by hand for L = 8), 'random' is drawn from the realization's generator after
+    the fields."""
+    d = parse_description(with_state({"kind": "product", "bits": ["00001111", "01100110"],
+                                       "configurations": ["all_up", "neel", "pairs", "domain_wall", "random"]}))
+    assert d.state_names == ("00001111", "01100110", "all_up", "neel", "pairs", "domain_wall", "random")
+    real = d.realization(3)
+    assert real.bits[:6] == ("00001111", "01100110", "00000000", "01010101", "00110011", "00001111")
+    rng = np.random.default_rng(np.random.SeedSequence([3, 20261201]))
+    rng.uniform(-2.0, 2.0, size=8)  # the fields come first
+    assert real.bits[6] == "".join("01"[b] for b in rng.integers(0, 2, size=8))
+    # a single bitstring keeps its old resolved form (and fingerprint)
+    old = parse_description(with_state({"kind": "product", "bits": "01010101"}))
+    assert old.to_dict()["state"] == {"kind": "product", "bits": "01010101"} and old.state_names == ("01010101",)
+
+
+@pytest.mark.parametrize("state, key, needle", [
+    ({"kind": "product", "configurations": ["neal"]}, "state.configurations[0]", "did you mean 'neel'"),
+    ({"kind": "product", "configurations": ["neel", "neel"]}, "state.configurations", "twice"),
+    ({"kind": "product", "bits": []}, "state.bits", "empty"),
+    ({"kind": "product", "bits": ["0101"]}, "state.bits[0]", "L = 8"),
+    ({"kind": "random_product", "configurations": ["neel"]}, "state.configurations", "product"),
+])
+def test_configuration_set_errors_name_the_key(state, key, needle):
+    with pytest.raises(ConfigError) as e:
+        parse_description(with_state(state))
+    assert e.value.key == key and needle in str(e.value)
