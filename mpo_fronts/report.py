@@ -13,12 +13,12 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .analysis import CROSSED, LAWS, STATUS_NAMES, Record, ensemble_distribution
+from .analysis import CROSSED, LAWS, STATUS_NAMES, Record, crossing_times, ensemble_distribution, one_side
 from .growth import ensemble_growth, growth_summary
 from .trust import (DEFAULT_MAX_DISCARDED, DEFAULT_TSTAR_TOL, LARGE_DISCARDED_WEIGHT, discarded_weight_warnings,
                     ensemble_front, ensemble_light_cone, trust_mask)
 
-__all__ = ["summarize", "format_summary", "jsonable"]
+__all__ = ["summarize", "format_summary", "jsonable", "configuration_crossings"]
 
 
 def jsonable(obj):
@@ -52,6 +52,38 @@ _FIT_KEYS = ("law", "parameter", "units", "value", "ci_low", "ci_high", "ci", "c
 def _half_widths(err) -> np.ndarray:
     """Largest of the two sides of a (2, n_d) error array, per distance."""
     return np.max(np.asarray(err, dtype=float), axis=0)
+
+
+def configuration_crossings(ens, threshold: float, probe: str, side: str = "auto", trusted=None
+                            ) -> list[dict[str, Any]] | None:
+    """Crossing times per basis state of a product-state run, side by side (None at infinite temperature).
+
+    For each state s (named as in ``state.bits`` / ``state.configurations``), the mean over realizations of
+    the product-state OTOC 1 - Re <s|W(t) V_r W(t) V_r|s> and its first crossing of ``threshold`` at each
+    distance d on ``side`` of W (untrusted points as in the summary's trust mask).
+
+    Returns
+    -------
+    list of dict or None
+        ``name``, ``bits`` (of the first realization; ``random`` states differ between realizations, see
+        ``bits_vary``), ``bits_vary``, ``distances``, ``tstar`` (None where C never reaches the threshold),
+        ``status``.
+    """
+    if getattr(ens, "state", "infinite_temperature") == "infinite_temperature":
+        return None
+    S = np.asarray(ens.state_otoc(probe), dtype=float)  # (R, n_states, n_t, L)
+    bits = np.asarray(ens.bits)
+    names = list(getattr(ens, "state_names", None) or [f"state{i}" for i in range(S.shape[1])])
+    cols, d, _ = one_side(int(ens.L), int(ens.site), side)
+    mask = None if trusted is None else np.broadcast_to(trusted, S[:, 0].shape).all(axis=0)[:, cols]
+    out = []
+    for i, name in enumerate(names):
+        curve = S[:, i].mean(axis=0)[:, cols]
+        cr = crossing_times(ens.times, curve, threshold, trusted=mask)
+        out.append({"name": name, "bits": str(bits[0, i]), "bits_vary": bool(np.any(bits[:, i] != bits[0, i])),
+                    "distances": d, "tstar": np.where(cr.status == CROSSED, cr.tstar, np.nan),
+                    "status": [STATUS_NAMES[int(x)] for x in cr.status]})
+    return out
 
 
 def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "mean", side: str = "auto",
@@ -96,7 +128,8 @@ def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "me
         per part: statistical, truncation, trotter, interpolation), ``error_budget`` (words),
         ``tstar_boot_std``, per-realization status counts; ``front`` (width exponent); ``growth`` (per
         distance d >= 1, ``early_exponent``, ``early_exponent_ci``, ``stages``, ...; see
-        :func:`mpo_fronts.growth.growth_summary`); ``distribution``
+        :func:`mpo_fronts.growth.growth_summary`); ``configurations`` (product-state runs: crossing times per
+        basis state side by side, :func:`configuration_crossings`; None at infinite temperature); ``distribution``
         (largest bimodality at one site); ``trust`` (criteria, trusted fraction); ``warnings`` (list of
         str, empty when nothing is wrong); ``largest_discarded_weight``, ``largest_bond``, ``engine``,
         ``description``. Non-finite numbers become None.
@@ -189,6 +222,7 @@ def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "me
                          "site_rule": "halfway along the longer side of W, or the farthest distance at which the "
                          "median C reaches 0.1 if nearer (analysis.reached_site)"},
         "growth": growth,
+        "configurations": configuration_crossings(ens, lc["threshold"], lc["probe"], lc["side"], g_mask),
         "trust": lc["trust"],
         "trusted_fraction": lc["trust"]["trusted_fraction"],
         "warnings": warnings,
@@ -243,6 +277,22 @@ def _crossing_lines(d: Mapping[str, Any]) -> list[str]:
         lines.append(f"{'d = ' if n else 'every distance, d = '}{dist[n]}..{dist[-1]}: unreached within "
                      f"t <= {_fmt(t_hi, '.3f')}")
     return lines
+
+
+def _configuration_lines(confs, threshold) -> list[str]:
+    """Crossing times per basis state of a product-state run, one column per state."""
+    if not confs:
+        return []
+    names = [c["name"] if len(c["name"]) <= 12 else c["name"][:11] + "~" for c in confs]
+    out = ["", f"crossing times t* of C = {_fmt(threshold, 'g')} per basis state (mean over realizations of "
+               "1 - Re <s|W(t) V_r W(t) V_r|s>; '-': not reached)",
+           "      d " + "".join(f"{n:>13}" for n in names)]
+    for j, dist in enumerate(confs[0]["distances"]):
+        out.append(f"{int(dist):>7} " + "".join(f"{_fmt(c['tstar'][j], '.3f'):>13}" for c in confs))
+    vary = [c["name"] for c in confs if c.get("bits_vary")]
+    shown = ", ".join(f"{c['name']} = {c['bits']}" for c in confs if not c.get("bits_vary"))
+    out.append(f"  states: {shown}" + (f"; {', '.join(vary)}: drawn per realization" if vary else ""))
+    return out
 
 
 def _growth_lines(g: Mapping[str, Any]) -> list[str]:
@@ -371,6 +421,7 @@ def format_summary(d: Mapping[str, Any]) -> str:
                      f"{_fmt(dist.get('max_bimodality'), '.3f')} at t = {_fmt(dist.get('t_at_max'), '.3f')} "
                      "(Sarle's coefficient, > 5/9 suggests two modes)")
     lines += _growth_lines(d.get("growth") or {})
+    lines += _configuration_lines(d.get("configurations"), d.get("threshold"))
     if eng:
         lines.append("engine: " + ", ".join(f"{k} = {_fmt(v, 'g', 'none')}" for k, v in eng.items()))
     return "\n".join(lines)
