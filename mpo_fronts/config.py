@@ -60,7 +60,7 @@ import numpy as np
 
 from .errors import ConfigError, InputError
 from .models import Chain, mixed_field_ising_chain, xxz_chain
-from .settings import SETTINGS_KEYS, EvolutionSettings
+from .settings import NEW_DEFAULTS, SETTINGS_KEYS, EvolutionSettings
 
 __all__ = ["RunDescription", "Realization", "read_description", "parse_description", "realization_rng",
            "SCHEMA", "MODEL_KINDS", "STATE_KINDS", "CONFIGURATIONS", "configuration_bits"]
@@ -531,6 +531,9 @@ class RunDescription:
         d.pop("run")
         d["ensemble"].pop("realizations")
         d["engine"] = d.pop("evolution")  # the table's name in 0.1.0: run directories written then still match
+        for key, default in NEW_DEFAULTS.items():  # keys added later count only when they differ from the default
+            if d["engine"].get(key) == default:
+                d["engine"].pop(key)
         return hashlib.sha256(_canonical(d).encode()).hexdigest()
 
     # ---------------------------------------------------------------- convenience

@@ -28,7 +28,7 @@ import numpy as np
 
 from .conventions import PROBES
 from .errors import LARGE_DISCARDED_WEIGHT, InputError, TruncationWarning
-from .evolve import OperatorTEBD, bond_entropies
+from .evolve import OperatorTEBD, bond_entropies, check_site, check_w
 from .readout import OtocResult, check_bits, product_state_otoc, read_operator
 from .schedules import check_times, step_plan
 from .settings import EvolutionSettings
@@ -206,8 +206,17 @@ def evolve(chain, w: str, site, times: Sequence[float], settings: EvolutionSetti
         raise InputError(f"threads (BLAS threads) must be a positive integer or None, got {threads!r}",
                          arg="threads")
     t_start = time.perf_counter()
-    eng = OperatorTEBD(chain, w=w, site=site, settings=settings, graded=graded)
     ts = check_times(times)
+    requested, auto_info = settings, None
+    if settings.auto:  # the step from the Trotter tolerance, measured on a window around W
+        from .stepsize import auto_dt
+
+        with threadpool_limits(limits=threads):
+            dt, auto_info = auto_dt(chain, check_w(w), check_site(site, chain.L),
+                                    float(ts[-1]) if ts[-1] > 0 else 1.0, settings.order, settings.splitting,
+                                    settings.trotter_tol)
+        settings = settings.replace(dt=dt)
+    eng = OperatorTEBD(chain, w=w, site=site, settings=settings, graded=graded)
     evo = Evolution(times=ts, settings=settings)
 
     def measure(k: int) -> None:
@@ -239,8 +248,11 @@ def evolve(chain, w: str, site, times: Sequence[float], settings: EvolutionSetti
 
         for k, _ in eng.run(ts, hook=hook):
             measure(k)
-    evo.engine = {"method": "mpo_tebd", **settings.to_dict(), "max_step": eng.max_step, "svd_floor": SVD_FLOOR,
-                  "graded": eng.graded, "splits": dict(eng.splits), "blas_threads": threads}
+    evo.engine = {"method": "mpo_tebd", **requested.to_dict(), "dt_used": settings.dt, "max_step": eng.max_step,
+                  "svd_floor": SVD_FLOOR, "graded": eng.graded, "splits": dict(eng.splits), "blas_threads": threads}
+    if auto_info is not None:
+        evo.engine["trotter_estimate"] = {k: auto_info[k] for k in ("A", "window", "t_pilot", "ratio",
+                                                                    "predicted_error", "safety", "tol")}
     evo.wall_time += time.perf_counter() - t_start
     for ob in observers:
         ob.at_end(evo)
@@ -272,10 +284,12 @@ def truncation_warnings(discarded_weight, times, threshold: float = LARGE_DISCAR
 
 
 # ------------------------------------------------------------------------------------------- Python API
-def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: float = 0.05, order: int = 2,
+def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: float | str = 0.05,
+                order: int | None = None,
                 cutoff: float = 0.0, state: str | None = None, chunk: int | None = None,
                 progress: Callable[[float], None] | None = None, truncation: str = "svd",
-                threads: int | None = 1, settings: EvolutionSettings | None = None) -> OtocResult:
+                threads: int | None = 1, settings: EvolutionSettings | None = None, splitting: str | None = None,
+                trotter_tol: float = 1e-3) -> OtocResult:
     """OTOCs C(r, t) of W at ``site`` with every probe site r, by Heisenberg-picture MPO TEBD.
 
     Parameters
@@ -288,8 +302,11 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
         Site of W.
     times : sequence of float
         Strictly increasing output times (>= 0, units 1/J); any spacing.
-    chi, dt, order, cutoff, chunk, truncation
+    chi, dt, order, cutoff, chunk, truncation, splitting, trotter_tol
         Evolution settings (see :class:`mpo_fronts.settings.EvolutionSettings`); or give ``settings``.
+        ``dt="auto"`` chooses the largest step whose estimated Trotter error of C stays below ``trotter_tol``
+        (with order 4, Blanes-Moan splitting unless ``order``/``splitting`` say otherwise); the step used is
+        ``res.meta["dt_used"]`` and the estimate ``res.meta["trotter_estimate"]``.
     state : str, optional
         None for infinite temperature, or a basis-state bitstring of length L ('0' = spin up) for the
         product-state OTOC C_s(r, t) = 1 - Re <s|W(t) V_r W(t) V_r|s>.
@@ -317,7 +334,8 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
     """
     if settings is None:
         settings = EvolutionSettings(chi=chi, dt=dt, order=order, cutoff=cutoff,
-                                     **({"chunk": chunk} if chunk is not None else {}), truncation=truncation)
+                                     **({"chunk": chunk} if chunk is not None else {}), truncation=truncation,
+                                     splitting=splitting, trotter_tol=trotter_tol)
     if state is not None:
         check_bits(state, chain.L)
     ms = list(DEFAULT_MEASUREMENTS) + ([ProductStates((state,))] if state is not None else [])

@@ -145,7 +145,11 @@ class OperatorTEBD:
         self.L = chain.L
         self.w = check_w(w)
         self.site = check_site(site, self.L)
+        if settings.auto:
+            raise InputError('dt = "auto" is resolved by mpo_fronts.driver.evolve (or evolve_otoc); give the '
+                             'engine a number (mpo_fronts.stepsize.auto_dt computes it)', arg="dt")
         self.chi, self.dt, self.order = settings.chi, settings.dt, settings.order
+        self.splitting = settings.splitting
         self.cutoff, self.chunk, self.truncation = settings.cutoff, settings.chunk, settings.truncation
         self.ledger = TruncationLedger.empty(self.L - 1)
         keep_freed_memory()
@@ -236,7 +240,7 @@ class OperatorTEBD:
             if i < self.blocks_done:
                 continue
             if n:
-                for parity, d in block_layers(self.order, n, tau):
+                for parity, d in block_layers(self.order, n, tau, self.splitting):
                     self._apply_layer(parity, d)
                 self.max_step = max(self.max_step, tau)
             self.blocks_done = i + 1

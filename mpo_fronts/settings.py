@@ -19,15 +19,17 @@ from typing import Any, Mapping
 import numpy as np
 
 from .errors import ConfigError, InputError
-from .schedules import DEFAULT_CHUNK, ORDERS
+from .schedules import DEFAULT_CHUNK, ORDERS, SPLITTINGS, check_splitting
 from .truncation import route, route_names
 
-__all__ = ["EvolutionSettings", "SETTINGS_KEYS"]
+__all__ = ["EvolutionSettings", "SETTINGS_KEYS", "NEW_DEFAULTS"]
 
 _WHAT = {
     "chi": "a positive integer (maximum bond dimension)",
-    "dt": "a positive number (largest Trotter step, units of 1/J)",
+    "dt": "a positive number (largest Trotter step, units of 1/J) or \"auto\"",
     "order": "2 or 4 (Trotter order)",
+    "splitting": "\"standard\" or, for order 2, \"omelyan\", for order 4, \"blanes_moan\"",
+    "trotter_tol": "a number in (0, 1) (Trotter error of C that dt = \"auto\" aims below)",
     "cutoff": "a number in [0, 1) (discarded weight per truncation)",
     "chunk": "a positive integer (Trotter steps per block)",
 }
@@ -41,10 +43,19 @@ class EvolutionSettings:
     ----------
     chi : int
         Maximum bond dimension (default 64).
-    dt : float
+    dt : float or 'auto'
         Largest Trotter step, units of 1/J (default 0.05); steps are shortened to land on every output time.
+        ``"auto"``: the largest step whose estimated Trotter error of C up to the last output time stays below
+        ``trotter_tol`` (:func:`mpo_fronts.stepsize.auto_dt`, resolved when the evolution starts; the value
+        used is recorded as ``dt_used`` in the outputs).
     order : {2, 4}
-        Trotter order (default 2).
+        Trotter order (default 2; with ``dt = "auto"``, 4).
+    splitting : str
+        The splitting of that order (:data:`mpo_fronts.schedules.SPLITTINGS`): ``"standard"`` (Strang, order 2;
+        Suzuki, order 4), ``"omelyan"`` (order 2), ``"blanes_moan"`` (order 4; the cheapest per accuracy in
+        scripts/bench/trotter.py, and the default with ``dt = "auto"``).
+    trotter_tol : float
+        Target of ``dt = "auto"``: largest |dC| from the Trotter splitting up to the last time (default 1e-3).
     cutoff : float
         Largest summed squared singular value dropped per truncation, absolute weight (W has unit weight);
         default 0 (only ``chi`` limits the bond).
@@ -64,10 +75,12 @@ class EvolutionSettings:
 
     chi: int = 64
     dt: float = 0.05
-    order: int = 2
+    order: int | None = None
     cutoff: float = 0.0
     chunk: int = DEFAULT_CHUNK
     truncation: str = "svd"
+    splitting: str | None = None
+    trotter_tol: float = 1e-3
 
     def __post_init__(self):
         def setv(name, value):
@@ -75,12 +88,26 @@ class EvolutionSettings:
 
         setv("chi", _positive_int("chi", self.chi))
         dt = self.dt
-        if isinstance(dt, bool) or not isinstance(dt, Real) or not np.isfinite(dt) or dt <= 0:
-            raise InputError(f"dt must be {_WHAT['dt']}, got {dt!r}", arg="dt")
-        setv("dt", float(dt))
+        if dt != "auto":
+            if isinstance(dt, bool) or not isinstance(dt, Real) or not np.isfinite(dt) or dt <= 0:
+                raise InputError(f"dt must be {_WHAT['dt']}, got {dt!r}", arg="dt")
+            setv("dt", float(dt))
+        auto = self.dt == "auto"
+        if self.order is None:  # dt = "auto" defaults to the cheapest splitting per accuracy
+            setv("order", 4 if auto and self.splitting in (None, "blanes_moan") else 2)
+        if self.splitting is None:
+            setv("splitting", "blanes_moan" if auto and self.order == 4 else "standard")
         if isinstance(self.order, bool) or self.order not in ORDERS:
             raise InputError(f"order must be {_WHAT['order']}, got {self.order!r}", arg="order")
         setv("order", int(self.order))
+        if not isinstance(self.splitting, str) or self.splitting not in SPLITTINGS[self.order]:
+            raise InputError(f"splitting must be {_WHAT['splitting']}, got {self.splitting!r} for order "
+                             f"{self.order}", arg="splitting")
+        check_splitting(self.order, self.splitting)
+        tol = self.trotter_tol
+        if isinstance(tol, bool) or not isinstance(tol, Real) or not (0 < tol < 1):
+            raise InputError(f"trotter_tol must be {_WHAT['trotter_tol']}, got {tol!r}", arg="trotter_tol")
+        setv("trotter_tol", float(tol))
         c = self.cutoff
         if isinstance(c, bool) or not isinstance(c, Real) or not (0 <= c < 1):
             raise InputError(f"cutoff must be {_WHAT['cutoff']}, got {c!r}", arg="cutoff")
@@ -103,7 +130,9 @@ class EvolutionSettings:
         for key in ("chi", "chunk"):  # TOML integers only: 16.0 or "16" are typing mistakes worth naming
             if key in table and (isinstance(table[key], bool) or not isinstance(table[key], Integral)):
                 raise ConfigError(f"{prefix}.{key}", f"expected {_WHAT[key]}, got {table[key]!r}")
-        for key in ("dt", "cutoff"):
+        for key in ("dt", "cutoff", "trotter_tol"):
+            if key == "dt" and table.get(key) == "auto":
+                continue
             if key in table and (isinstance(table[key], bool) or not isinstance(table[key], Real)):
                 raise ConfigError(f"{prefix}.{key}", f"expected {_WHAT[key]}, got {table[key]!r}")
         try:
@@ -124,6 +153,16 @@ class EvolutionSettings:
     def to_dict(self) -> dict[str, Any]:
         """The settings as plain numbers and strings (what result files and run descriptions store)."""
         return dataclasses.asdict(self)
+
+    @property
+    def auto(self) -> bool:
+        """True when the step is chosen from ``trotter_tol`` (``dt = "auto"``)."""
+        return self.dt == "auto"
+
+
+#: Keys added after version 0.1.0 and their defaults: left out of run-description fingerprints while they hold
+#: the default, so that run directories written by 0.1.0 still resume.
+NEW_DEFAULTS = {"splitting": "standard", "trotter_tol": 1e-3}
 
 
 #: The keys of the ``[evolution]`` table, in the order of :class:`EvolutionSettings`.

@@ -54,7 +54,8 @@ def test_defaults_are_resolved():
     assert d["operators"] == {"w": "Z", "site": 0, "v": ["X", "Y", "Z"]}
     assert d["state"] == {"kind": "infinite_temperature"}
     assert d["evolution"] == {"chi": 64, "dt": 0.05, "order": 2, "cutoff": 0.0, "chunk": 20,
-                              "truncation": "svd"}  # the table [engine] is now [evolution]
+                              "truncation": "svd", "splitting": "standard",
+                              "trotter_tol": 1e-3}  # the table [engine] is now [evolution]
     assert d["ensemble"] == {"realizations": 1, "seed": 0}
     assert d["run"]["checkpoints"] is True and d["run"]["checkpoint_interval"] > 0
     ising = parse_description({"model": {"kind": "mixed_field_ising", "L": 6}, "times": {"values": [1.0]}})
@@ -180,7 +181,8 @@ _NON_DEFAULT = {
     "operators": {"w": "X", "site": 3, "v": ["Y"]},
     "state": {"kind": "random_product", "bits": "01010101", "samples": 2, "configurations": ["neel"]},
     "times": {"values": [0.25, 0.5], "start": 0.2, "stop": 3.0, "num": 5, "spacing": "linear"},
-    "evolution": {"chi": 7, "dt": 0.02, "order": 4, "cutoff": 1e-9, "chunk": 3, "truncation": "rsvd"},
+    "evolution": {"chi": 7, "dt": 0.02, "order": 4, "cutoff": 1e-9, "chunk": 3, "truncation": "rsvd",
+                  "splitting": "omelyan", "trotter_tol": 1e-4},
     "ensemble": {"realizations": 3, "seed": 11},
     "run": {"label": "x", "checkpoints": False, "checkpoint_interval": 5.0, "claim_timeout": 60.0},
 }
@@ -334,3 +336,19 @@ def test_configuration_set_errors_name_the_key(state, key, needle):
     with pytest.raises(ConfigError) as e:
         parse_description(with_state(state))
     assert e.value.key == key and needle in str(e.value)
+
+
+def test_dt_auto_and_splittings_in_descriptions():
+    d = parse_description(base(engine__dt="auto", engine__order=None))
+    assert d.settings.auto and d.settings.order == 4 and d.settings.splitting == "blanes_moan"
+    assert parse_description(base(engine__dt="auto")).settings.splitting == "standard"  # order 2 given
+    plain = parse_description(base())
+    # keys added after 0.1.0 at their defaults leave the fingerprint of 0.1.0 descriptions unchanged
+    assert plain.fingerprint() == parse_description(base(engine__splitting="standard",
+                                                         engine__trotter_tol=1e-3)).fingerprint()
+    assert plain.fingerprint() != parse_description(base(engine__splitting="omelyan")).fingerprint()
+    for key, value, needle in (("splitting", "blanes_moan", "for order 2"), ("trotter_tol", 2.0, "(0, 1)"),
+                               ("dt", "fast", "auto")):
+        with pytest.raises(ConfigError) as e:
+            parse_description(base(**{f"engine__{key}": value}))
+        assert e.value.key == f"engine.{key}" and needle in str(e.value), str(e.value)  # the table as given

@@ -15,7 +15,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "mpo_fronts"
 LAYERS = [
     "conventions", "errors",                       # shared constants and the error hierarchy
     "models", "pauli", "schedules", "truncation",  # chain -> gates, Trotter schedules, truncation routes
-    "settings", "evolve", "u1",                    # the engines
+    "settings", "stepsize", "evolve", "u1",        # Trotter error and step; the engines
     "readout", "driver", "references", "exact",    # measurements, the one evolution loop, exact references
     "config",                                      # run descriptions
     "atomic", "rundir", "results", "store",        # the on-disk layout
@@ -24,7 +24,7 @@ LAYERS = [
     "workflows", "report",                         # check and convergence study; summaries
     "plots", "cli", "__init__",                    # figures, command line, package namespace
 ]
-KERNELS = ("pauli", "schedules", "truncation", "settings", "evolve", "u1", "readout", "driver", "exact",
+KERNELS = ("pauli", "schedules", "truncation", "settings", "stepsize", "evolve", "u1", "readout", "driver", "exact",
            "references")
 RUNNER = ("config", "atomic", "rundir", "results", "store", "stopping", "ensemble", "workflows", "analysis",
           "growth", "trust", "report", "plots", "cli", "__init__")
