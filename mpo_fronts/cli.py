@@ -318,7 +318,7 @@ def _cmd_run(args) -> int:
         from .store import run_status
 
         with __import__("contextlib").suppress(Exception):
-            _discarded_warning(run_status(args.out)["max_discarded_weight"])
+            _discarded_warning(run_status(args.out)["largest_discarded_weight"])
     _say(f"next: fronts status {args.out}; fronts merge {args.out} -o merged.h5; "
          f"python -c \"import mpo_fronts as mf; ens = mf.load('{args.out}')\"")
     return 0
@@ -378,10 +378,11 @@ def _status_one(directory, as_json: bool) -> int:
          f"  stale claims: {len(st['stale'])}" + (f"  {ks(e['k'] for e in st['stale'])} (owner gone; a rerun "
                                                    "takes them over)" if st["stale"] else ""),
          f"  missing:      {len(st['missing'])}" + (f"  {ks(st['missing'])}" if st["missing"] else ""),
-         f"  largest discarded weight: {st['max_discarded_weight']:.3g}; largest bond dimension: {st['max_bond']}"
+         f"  largest discarded weight: {st['largest_discarded_weight']:.3g}; largest bond dimension: "
+         f"{st['largest_bond']}"
          if n_done else "  (no finished realization yet)")
     if n_done:
-        _discarded_warning(st["max_discarded_weight"])
+        _discarded_warning(st["largest_discarded_weight"])
     return 0
 
 

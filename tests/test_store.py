@@ -191,7 +191,7 @@ def test_load_directory_and_merged_file_agree(small_run, tmp_path):
 def test_result_file_contents(small_run):
     with h5py.File(small_run / "realizations" / "r00001.h5") as f:
         assert json.loads(f.attrs["description"]) == json.loads((small_run / "run.json").read_text())["description"]
-        eng = json.loads(f.attrs["engine"])
+        eng = json.loads(f.attrs["evolution"])  # the evolution settings ("engine" before 0.2)
         assert eng["chi"] == 8 and eng["order"] == 2 and eng["dt"] == 0.1 and eng["max_step"] <= 0.1
         assert eng["truncation"] == "svd" and eng["graded"] is False  # how the truncation was done
         assert f.attrs["conventions"] == mf.CONVENTIONS
@@ -292,3 +292,18 @@ def test_every_dataset_names_its_axes_units_and_meaning(small_run, tmp_path):
             assert f["otoc/Z"].attrs["probe"] == "Z"
             assert f["bond_entropy"].attrs["units"] == "nats"
             assert f["weights"].attrs["axes"].startswith("realization,") == merged
+
+
+def test_files_written_before_0_2_keep_loading(small_run, tmp_path):
+    """Result files whose settings attribute is still called 'engine' (0.1.0) load with the same settings."""
+    import shutil
+
+    old = tmp_path / "old"
+    shutil.copytree(small_run, old)
+    for p in (old / "realizations").glob("*.h5"):
+        with h5py.File(p, "a") as f:
+            f.attrs["engine"] = f.attrs["evolution"]
+            del f.attrs["evolution"]
+    assert load(old).engine == load(small_run).engine
+    st = run_status(old)
+    assert st["largest_discarded_weight"] == st["max_discarded_weight"] == run_status(small_run)["max_discarded_weight"]
