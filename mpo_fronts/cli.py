@@ -225,6 +225,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--probe", type=_probe, default=None,
                    help="probe V (default: Z if stored, else the first of operators.v)")
     p.add_argument("--json", action="store_true", help="print JSON (default: a table)")
+    p.add_argument("--trotter", default=None, metavar="DIR2",
+                   help="the same description run at a second evolution.dt: its difference estimates the Trotter "
+                        "error of each crossing time (Richardson), added to the error bars (default: none, the "
+                        "summary says the Trotter error is not included)")
 
     p = sub.add_parser("plot", help="write the figures of a run",
                        description="Write the figures of a finished run (heat map, distribution, light cone, "
@@ -545,9 +549,43 @@ def _summary_text(summary: dict) -> str:
 def _cmd_summary(args) -> int:
     summarize = _need_analysis("summarize", "report")
     ens = _load(args.directory)
-    s = summarize(ens, threshold=args.threshold, probe=_default_probe(ens, args.probe))
+    probe = _default_probe(ens, args.probe)
+    trotter = _trotter_estimate(ens, args.trotter, probe) if args.trotter else None
+    s = summarize(ens, threshold=args.threshold, probe=probe, trotter=trotter)
     print(json.dumps(s, indent=1) if args.json else _summary_text(s))
     return 0
+
+
+def _trotter_estimate(ens, other_path, probe: str) -> dict:
+    """trust.trotter_convergence of a run against the same run at a second time step (another directory)."""
+    import numpy as np
+
+    from .trust import trotter_convergence
+
+    other = _load(other_path)
+    a, b = dict(ens.description), dict(other.description)
+    ea, eb = dict(a.get("evolution", a.get("engine", {}))), dict(b.get("evolution", b.get("engine", {})))
+    if ens.engine.get("dt_used", ens.engine.get("dt")) == other.engine.get("dt_used", other.engine.get("dt")):
+        raise InputError(f"--trotter {other_path}: it ran at the same time step as {ens.path}; give a run of the "
+                         "same description at a different evolution.dt (for example half of it)")
+    for x in (ea, eb):
+        for key in ("dt", "trotter_tol", "chunk"):
+            x.pop(key, None)
+    same = {k: v for k, v in a.items() if k not in ("evolution", "engine", "run", "ensemble")} == \
+        {k: v for k, v in b.items() if k not in ("evolution", "engine", "run", "ensemble")} and ea == eb
+    if not same:
+        raise InputError(f"--trotter {other_path}: not the same description as {ens.path} apart from "
+                         "evolution.dt; run the same description with only dt changed")
+    common = np.intersect1d(ens.realizations, other.realizations)
+    if common.size == 0:
+        raise InputError(f"--trotter {other_path}: no realization in common with {ens.path}")
+    ia = np.searchsorted(ens.realizations, common)
+    ib = np.searchsorted(other.realizations, common)
+    from .analysis import probe_otoc
+
+    return trotter_convergence(probe_otoc(ens, probe)[ia], probe_otoc(other, probe)[ib],
+                               float(ens.engine.get("dt_used", ens.engine["dt"])),
+                               float(other.engine.get("dt_used", other.engine["dt"])), int(ens.engine["order"]))
 
 
 def _cmd_plot(args) -> int:
