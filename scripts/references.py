@@ -98,7 +98,8 @@ def parse_grid(items) -> np.ndarray:
 
 
 def provenance() -> dict:
-    """Command line, git commit, whether the package or this script differ from it, the machine."""
+    """Command line, git commit, whether (and which of) the package files or this script differ from it, the
+    machine. The working tree is shared, so a dirty flag may come from files this computation does not use."""
     def git(*args):
         try:
             return subprocess.run(["git", *args], cwd=ROOT, capture_output=True, text=True, check=False)
@@ -112,6 +113,8 @@ def provenance() -> dict:
     return {"command": " ".join(["python", "scripts/references.py", *sys.argv[1:]]),
             "git_commit": head.stdout.strip() if head and head.returncode == 0 else None,
             "git_dirty": bool(diff.stdout.strip()) if diff and diff.returncode == 0 else None,
+            "git_dirty_files": ([line[3:] for line in diff.stdout.splitlines()] if diff and diff.returncode == 0
+                                else None),
             "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
             "machine": {"platform": platform.platform(), "cores": os.cpu_count(),
                         "blas_threads": os.environ.get("OPENBLAS_NUM_THREADS"), "python": platform.python_version(),
