@@ -1,31 +1,43 @@
 """U(1) charge blocks: the TEBD engine for chains that conserve total S^z, block by block over charge sectors.
 
-When H commutes with total S^z, conjugation by exp(-i theta S^z_tot) commutes with the Heisenberg evolution,
-so W(t) keeps the U(1) charge of W. The operator is held in the single-site basis
+When H commutes with total S^z, W(t) keeps the U(1) charge of W (for W = Z: charge 0). The operator is held in
+the single-site basis
 
     e_I = I,   e_Z = Z,   e_+ = (X + iY) / sqrt 2 = sqrt 2 S^+,   e_- = (X - iY) / sqrt 2 = sqrt 2 S^-
 
 (letter order I, Z, +, -; charges 0, 0, +1, -1), orthonormal under <A, B> = Tr(A^dag B) / 2, so the coefficients
 d_S of W(t) = sum_S d_S e_S are complex with sum_S |d_S|^2 the Frobenius weight, and the two-site Heisenberg
-gates G_c = T2 G T2^dag (G the real Pauli transfer matrix of :mod:`mpo_fronts.pauli`, T2 the two-site change
-of basis) are unitary 16 x 16 matrices that are block diagonal in the charge of the letter pair (block sizes 1,
-4, 6, 4, 1 for charge -2..2). Every bond index carries the charge of the left part of the string (the sum of
-the letter charges to its left); bond indices are kept sorted by charge, and a site tensor A[l, a, r] vanishes
-unless q_r = q_l + c(a). Every contraction, QR and truncation works block by block over the charge sectors
-of the bond it acts on (the Z2 grading of :mod:`mpo_fronts.evolve` is the parity of this charge), and the
-truncation keeps the globally largest singular values across the blocks, so the discarded-weight ledger is the
-norm loss exactly, as in the Z2 engine.
+gates G_c = T2 G T2^dag (G the real Pauli transfer matrix of :mod:`mpo_fronts.pauli`, T2 the two-site change of
+basis) are unitary 16 x 16 matrices, block diagonal in the charge of the letter pair (block sizes 1, 4, 6, 4, 1
+for pair charge -2..2). Every bond index carries the charge of the left part of the string (the sum of the
+letter charges to its left); bond indices are kept sorted by charge, and a site tensor A[l, a, r] vanishes
+unless q_r = q_l + c(a). The Z2 grading of :mod:`mpo_fronts.evolve` is the parity of this charge.
 
-Only W = Z is evolved (charge 0; X and Y are not charge eigenstates). For a charge-0 operator the strings with
-e_+ and with e_- at one site and the same letters elsewhere have total charges that differ by 2, so the cross
-terms between them vanish and the single-site weights of X and of Y are each half the summed weight of e_+
-and e_- (:func:`charge_profiles`). The C(r, t) of W = X follows from the z-rotation symmetry of these chains
-by other means; it is not computed here.
+**Hermitian gauge.** W(t) is Hermitian: with the letter swap a -> abar (+ <-> -), d_{Sbar} = conj(d_S). The engine
+keeps the MPS in a gauge where this holds tensor by tensor: on every bond the sectors q and -q have the same
+dimension, index j of sector q is paired with index j of sector -q (``pi``; sector 0 is paired with itself), and
+
+    A[pi(l), abar, pi(r)] = conj(A[l, a, r]).
+
+The gates respect it (G_c[Sbar', Sbar] = conj(G_c[S', S]), since the Heisenberg map commutes with Hermitian
+conjugation), so every decomposition of a gate or of a centre move is computed for charges v >= 0 only: the
+v < 0 factors are the conjugates of the v > 0 ones (their singular values are the same), and the v = 0 block,
+which carries the conjugation as an antilinear involution of its rows and columns, is brought to a *real*
+matrix of the same size by a fixed unitary change of basis (pairs (x + y) / sqrt 2, i (x - y) / sqrt 2) and
+decomposed in real arithmetic. One truncation then keeps the globally largest singular values across the
+blocks, counting a v != 0 value twice (for v and -v) and never separating such a pair, so the kept operator
+stays Hermitian; the discarded weight is the sum of the squares dropped, which is the norm loss exactly.
+
+Only W = Z is evolved (charge 0; X and Y are not charge eigenstates). The single-site Pauli weights, the OTOCs of
+every probe X, Y, Z and the right-weight profile follow from the charge-basis weights (:func:`charge_profiles`);
+for a charge-0 operator the strings with e_+ and with e_- at one site and the same letters elsewhere have total
+charges that differ by 2, so the cross terms between them vanish and the weights of X and of Y at a site are each
+half the summed weight of e_+ and e_-. :meth:`ChargeTEBD.real_pauli_arrays` gives the same operator as a real MPS
+over Pauli letters in the same canonical form, which every function of :mod:`mpo_fronts.readout` accepts.
 """
 
 from __future__ import annotations
 
-from numbers import Integral
 from typing import Any, Callable, Iterator, Sequence
 
 import numpy as np
@@ -36,7 +48,7 @@ from .models import Chain
 from .pauli import bond_propagators, transfer_matrices
 from .schedules import block_layers, step_plan
 from .settings import EvolutionSettings
-from .truncation import TruncationLedger, route
+from .truncation import SVD_FLOOR, TruncationLedger
 
 __all__ = ["ChargeTEBD", "CHARGE_LETTERS", "LETTER_CHARGE", "TO_CHARGE", "charge_gates", "charge_weights",
            "charge_profiles", "COMPLEX_ROUTES"]
@@ -53,19 +65,21 @@ TO_CHARGE = np.array([[1, 0, 0, 0],
                       [0, _S, -1j * _S, 0],
                       [0, _S, 1j * _S, 0]], dtype=complex)
 TO_CHARGE.setflags(write=False)
-#: Truncation routes that handle complex blocks (the randomized and Gram routes transpose without conjugating).
+#: Truncation routes ChargeTEBD accepts: its own blockwise SVD (LAPACK gesdd) in the Hermitian gauge.
 COMPLEX_ROUTES = ("svd",)
+_SWAP = np.array([0, 1, 3, 2], dtype=np.int64)  # Hermitian conjugation of a letter: e_+ <-> e_-
 _PAIR_CHARGE = (LETTER_CHARGE[:, None] + LETTER_CHARGE[None, :]).reshape(16)
+_PAIRS = {c: np.flatnonzero(_PAIR_CHARGE == c) for c in range(-2, 3)}  # letter pairs a*4+b of pair charge c
 _GATE_LEAK_TOL = 1e-10  # largest charge-violating gate entry tolerated (then set to exactly zero)
-_EMPTY = np.zeros(0, dtype=np.int64)
+_CACHE_SIZE = 512  # index maps kept per engine (keyed by the charges of the bonds around a site or a gate)
 
 
 def charge_gates(h_bonds: np.ndarray, tau: float) -> np.ndarray:
     """Heisenberg gates of exp(-i H_b tau) in the charge basis, (n, 16, 16) complex, block diagonal in charge.
 
     G_c = T2 G T2^dag with G the Pauli transfer matrix (c' = G c) and T2 = TO_CHARGE (x) TO_CHARGE, so that
-    d' = G_c d. Entries between letter pairs of different charge are set to exactly zero; an InputError is raised
-    when they are not zero to rounding (a bond Hamiltonian that does not conserve S^z).
+    d' = G_c d. Entries between letter pairs of different charge are set to exactly zero; an InputError naming
+    ``chain`` is raised when they are not zero to rounding (a bond Hamiltonian that does not conserve S^z).
     """
     G = transfer_matrices(bond_propagators(h_bonds, tau))
     T2 = np.kron(TO_CHARGE, TO_CHARGE)
@@ -90,22 +104,174 @@ def _runs(q: np.ndarray):
     return q[starts].tolist(), starts.tolist(), stops.tolist()
 
 
-def _grouped(q: np.ndarray):
-    """Index groups of an unsorted charge array: {charge: indices with that charge (ascending)}."""
-    perm = np.argsort(q, kind="stable")
-    vals, a, b = _runs(q[perm])
-    return {v: perm[i:j] for v, i, j in zip(vals, a, b)}
+def _sectors(q: np.ndarray) -> dict[int, tuple[int, int]]:
+    """{charge: (start, stop)} of a sorted charge array."""
+    vals, a, z = _runs(q)
+    return {v: (i, j) for v, i, j in zip(vals, a, z)}
+
+
+def _partner(q: np.ndarray) -> np.ndarray:
+    """The pairing pi of a sorted, charge-symmetric bond: index j of sector q <-> index j of sector -q."""
+    first = np.searchsorted(q, q, side="left")
+    return np.searchsorted(q, -q, side="left") + (np.arange(q.size) - first)
+
+
+class _Side:
+    """The row (or column) index of a site matrix, grouped by charge, with its Hermitian pairing.
+
+    ``groups[v]``: ascending flat indices of charge v; ``pos``: position of every index in its group; ``partner``:
+    the paired index (charge -v); ``real0``: positions (F, I, K) in group 0 of the self-paired indices and of the
+    pairs i < k (the real change of basis of the v = 0 block).
+    """
+
+    __slots__ = ("groups", "pos", "partner", "real0")
+
+    def __init__(self, fq: np.ndarray, fp: np.ndarray):
+        perm = np.argsort(fq, kind="stable")
+        sq = fq[perm]
+        pos = np.empty(fq.size, dtype=np.int64)
+        pos[perm] = np.arange(fq.size) - np.searchsorted(sq, sq, side="left")
+        vals, a, z = _runs(sq)
+        self.groups = {v: perm[i:j] for v, i, j in zip(vals, a, z)}
+        self.pos = pos
+        self.partner = fp
+        g0 = self.groups.get(0)
+        if g0 is None:
+            self.real0 = None
+        else:
+            pp = pos[fp[g0]]
+            ar = np.arange(g0.size)
+            F = np.flatnonzero(pp == ar)
+            I = np.flatnonzero(pp > ar)
+            self.real0 = (F, I, pp[I])
+
+
+def _to_real(M: np.ndarray, rows, cols) -> np.ndarray:
+    """The real matrix T_r^dag M T_c of a v = 0 block (``rows``/``cols``: (F, I, K) positions, or None when the
+    index is self-paired everywhere)."""
+    if rows is not None:
+        F, I, K = rows
+        MI, MK = M[I], M[K]
+        M = np.concatenate([M[F], (MI + MK) * _S, (MI - MK) * (-1j * _S)])
+    if cols is None:
+        return np.ascontiguousarray(M.real)
+    F, I, K = cols
+    YI, YK = M[:, I], M[:, K]
+    return np.concatenate([M[:, F].real, (YI + YK).real * _S, (YI - YK).imag * (-_S)], axis=1)
+
+
+def _from_real_rows(u: np.ndarray, rows) -> np.ndarray:
+    """T_r u: rows of a real factor back to the charge basis (complex), in group order."""
+    F, I, K = rows
+    nF, nI = F.size, I.size
+    out = np.empty(u.shape, dtype=complex)
+    out[F] = u[:nF]
+    a, b = u[nF:nF + nI], u[nF + nI:]
+    out[I] = (a + 1j * b) * _S
+    out[K] = (a - 1j * b) * _S
+    return out
+
+
+def _from_real_cols(vt: np.ndarray, cols) -> np.ndarray:
+    """vt T_c^dag: columns of a real factor back to the charge basis (complex), in group order."""
+    F, I, K = cols
+    nF, nI = F.size, I.size
+    out = np.empty(vt.shape, dtype=complex)
+    out[:, F] = vt[:, :nF]
+    a, b = vt[:, nF:nF + nI], vt[:, nF + nI:]
+    out[:, I] = (a - 1j * b) * _S
+    out[:, K] = (a + 1j * b) * _S
+    return out
+
+
+def _svd(m: np.ndarray):
+    import scipy.linalg
+
+    try:
+        return scipy.linalg.svd(m, full_matrices=False, lapack_driver="gesdd", check_finite=False)
+    except np.linalg.LinAlgError:  # pragma: no cover - rare convergence failure of gesdd
+        return scipy.linalg.svd(m, full_matrices=False, lapack_driver="gesvd", check_finite=False)
+
+
+def _keep(svals: list[np.ndarray], mult: list[int], chi: int, cutoff: float):
+    """How many values of each block a truncation keeps, and the weight it drops.
+
+    ``svals``: descending singular values per block, ``mult``: how many bond indices each value of the block
+    stands for (1 for v = 0, 2 for a v, -v pair). The largest values are kept, in descending order, while their
+    indices fit in ``chi`` (a pair that does not fit ends the selection); values at or below ``SVD_FLOOR`` times
+    the largest are numerical zeros; then the smallest kept values are dropped while their summed weight stays at
+    or below ``cutoff``. At least one value is kept.
+    """
+    s_all = np.concatenate(svals)
+    m_all = np.concatenate([np.full(s.size, m, dtype=np.int64) for s, m in zip(svals, mult)])
+    w_all = s_all * s_all * m_all
+    order = np.argsort(-s_all, kind="stable")
+    s_sorted = s_all[order]
+    n = int(np.count_nonzero(s_sorted > SVD_FLOOR * s_sorted[0])) if s_sorted[0] > 0 else 1
+    n = int(np.searchsorted(np.cumsum(m_all[order[:n]]), chi, side="right"))
+    if cutoff > 0 and n > 1:
+        tail = np.cumsum(w_all[order[n - 1::-1]])
+        n = max(1, n - int(np.searchsorted(tail, cutoff, side="right")))
+    n = max(n, 1)
+    kept = np.zeros(s_all.size, dtype=bool)
+    kept[order[:n]] = True
+    disc = float(np.sum(w_all[~kept]))
+    counts, off = [], 0
+    for s in svals:
+        counts.append(int(np.count_nonzero(kept[off:off + s.size])))  # a block's kept values are its largest
+        off += s.size
+    return counts, disc
+
+
+class _GateMap:
+    """Index maps of one two-site block theta[(l, a), (b, r)] for given outer bond charges (cached).
+
+    The nonzero entries are stored block by block over the charge v of the middle bond (rows (l, a) with
+    q_l + c(a) = v, columns (b, r) with q_r - c(b) = v), blocks concatenated in one flat buffer; the gate mixes
+    entries with the same (l, r) whose letter pairs have the charge c = q_r - q_l: ``pair_maps`` holds, for every
+    c, the buffer positions (k_c, n_c) of those entries (rows in the order of :data:`_PAIRS` [c]).
+    """
+
+    __slots__ = ("rows", "cols", "blocks", "size", "pair_maps")
+
+    def __init__(self, ql: np.ndarray, qr: np.ndarray, rows: _Side, cols: _Side):
+        Dl, Dr = ql.size, qr.size
+        self.rows, self.cols = rows, cols
+        blocks, off = [], 0
+        rowoff = np.zeros(Dl * 4, dtype=np.int64)
+        for v in sorted(rows.groups):
+            ridx, cidx = rows.groups[v], cols.groups.get(v)
+            if cidx is None:
+                continue
+            nr, nc = ridx.size, cidx.size
+            blocks.append((v, ridx, cidx, off, nr, nc))
+            rowoff[ridx] = off + rows.pos[ridx] * nc
+            off += nr * nc
+        self.blocks = blocks
+        self.size = off
+        diff = qr[None, :] - ql[:, None]
+        maps = []
+        for c, pairs in _PAIRS.items():
+            li, ri = np.nonzero(diff == c)
+            if li.size == 0:
+                continue
+            a, b = pairs // 4, pairs % 4
+            idx = rowoff[li[None, :] * 4 + a[:, None]] + cols.pos[b[:, None] * Dr + ri[None, :]]
+            maps.append((c, idx))
+        self.pair_maps = maps
 
 
 # -------------------------------------------------------------------------------------------- engine
 class ChargeTEBD:
     """Heisenberg-picture TEBD of W = Z with U(1) charge blocks, for chains that conserve total S^z.
 
-    The same interface as :class:`mpo_fronts.evolve.OperatorTEBD` (``run``, ``state_dict``, ``norm2``, the
-    ledger, ``t``, ``center``, ``max_bond``, ``max_step``, ``blocks_done``); results equal it to rounding where
-    neither truncates, and with truncation both keep the globally largest singular values of each two-site
-    block (the U(1) blocks are a refinement of the Z2 blocks, so they may differ only where singular values are
-    degenerate at the cut).
+    The same evolution interface as :class:`mpo_fronts.evolve.OperatorTEBD` (``run``, ``state_dict``,
+    ``load_state_dict``, ``norm2``, ``ledger``, ``discarded_weight``, ``t``, ``center``, ``max_bond``,
+    ``max_step``, ``blocks_done``, ``splits``); results equal it to rounding where neither truncates. With
+    truncation both keep the globally largest singular values of each two-site block, but where the cut falls
+    inside a degenerate pair (v, -v) this engine keeps or drops the pair whole (the operator stays Hermitian),
+    while the Pauli-basis engines keep one combination of it; the two then differ by an amount of the order of
+    the truncation error.
 
     Parameters
     ----------
@@ -116,8 +282,9 @@ class ChargeTEBD:
     site : int or 'center'
         Where W sits at t = 0.
     settings : EvolutionSettings, optional
-        chi, dt, order, cutoff, chunk, truncation (see :class:`mpo_fronts.settings.EvolutionSettings`);
-        ``truncation`` must be one of :data:`COMPLEX_ROUTES`.
+        chi (at least 2), dt (a number: resolve ``"auto"`` first), order, cutoff, chunk, truncation (one of
+        :data:`COMPLEX_ROUTES`) and, where the settings have it, splitting (see
+        :class:`mpo_fronts.settings.EvolutionSettings`).
     **options
         Instead of ``settings``, the same fields as keywords.
 
@@ -125,11 +292,12 @@ class ChargeTEBD:
     ----------
     arrays : list of ndarray (D_left, 4, D_right), complex
         The operator MPS in the charge basis (letters I, Z, +, -; see the module doc), mixed canonical around
-        ``center``; :meth:`pauli_arrays` gives it in the Pauli basis.
+        ``center``, in the Hermitian gauge; :meth:`real_pauli_arrays` gives it as a real Pauli-basis MPS.
     charges : list of ndarray (D_b,), int
-        Charge of every index of bond b (between sites b and b + 1), ascending.
+        Charge of every index of bond b (between sites b and b + 1), ascending, symmetric under q -> -q.
     ledger : TruncationLedger
-        Discarded weight: total (``discarded_weight``), per bond, gates per route.
+        Discarded weight: total (``discarded_weight``, the norm loss 1 - sum_S |d_S|^2), per bond, gates per
+        route.
 
     Examples
     --------
@@ -137,8 +305,8 @@ class ChargeTEBD:
     >>> eng = ChargeTEBD(xxz_chain(10, W=1.0, seed=1), w="Z", site=5, chi=16, dt=0.1)
     >>> for k, e in eng.run([0.5, 1.0]):
     ...     pass
-    >>> round(e.t, 12), e.max_bond <= 16
-    (1.0, True)
+    >>> round(e.t, 12), e.max_bond <= 16, e.profiles()["weights"].shape
+    (1.0, True, (10, 4))
     """
 
     graded = "u1"
@@ -163,7 +331,14 @@ class ChargeTEBD:
                              f"and -1), got {w!r}; use OperatorTEBD for W = X or Y", arg="w")
         if settings.truncation not in COMPLEX_ROUTES:
             raise InputError(f"truncation must be one of {', '.join(map(repr, COMPLEX_ROUTES))} for ChargeTEBD "
-                             f"(its blocks are complex), got {settings.truncation!r}", arg="truncation")
+                             f"(its blocks are complex and split in pairs), got {settings.truncation!r}",
+                             arg="truncation")
+        if settings.chi < 2:
+            raise InputError(f"chi must be at least 2 for ChargeTEBD (singular values of charges v and -v are kept "
+                             f"in pairs), got {settings.chi}", arg="chi")
+        if not isinstance(settings.dt, float):
+            raise InputError(f"dt must be a number for ChargeTEBD, got {settings.dt!r}; resolve dt = 'auto' to a "
+                             f"step first (mpo_fronts.stepsize.auto_dt)", arg="dt")
         self.settings = settings
         self.chain = chain
         self.L = chain.L
@@ -171,23 +346,24 @@ class ChargeTEBD:
         self.site = check_site(site, self.L)
         self.chi, self.dt, self.order = settings.chi, settings.dt, settings.order
         self.cutoff, self.chunk, self.truncation = settings.cutoff, settings.chunk, settings.truncation
+        self.splitting = getattr(settings, "splitting", "standard")
         self.ledger = TruncationLedger.empty(self.L - 1)
         keep_freed_memory()
         self._hb = chain.bond_hamiltonians()
-        self._gates: dict[float, np.ndarray] = {}
+        self._gates: dict[float, list] = {}
+        self._maps: dict[Any, Any] = {}
         ident = np.zeros((1, 4, 1), dtype=complex)
         ident[0, 0, 0] = 1.0
         self.arrays: list[np.ndarray] = [ident.copy() for _ in range(self.L)]
         self.arrays[self.site] = np.zeros((1, 4, 1), dtype=complex)
         self.arrays[self.site][0, 1, 0] = 1.0  # e_Z = Z
         self.charges: list[np.ndarray] = [np.zeros(1, dtype=np.int64) for _ in range(self.L - 1)]
-        self._edge = (np.zeros(1, dtype=np.int64), np.zeros(1, dtype=np.int64))  # W = Z has total charge 0
+        self._edge = np.zeros(1, dtype=np.int64)  # W = Z has total charge 0: both chain ends carry charge 0
         self.center = self.site
         self.lo = self.hi = self.site
         self.t = 0.0
         self.blocks_done = 0
         self.max_step = 0.0
-        self._split = route(self.truncation).split_blocks
 
     # ------------------------------------------------------------------ bookkeeping
     @property
@@ -212,18 +388,37 @@ class ChargeTEBD:
 
     def sector_dims(self, b: int) -> dict[int, int]:
         """Dimension of every charge sector of bond b (between sites b and b + 1)."""
-        vals, a, z = _runs(self.charges[b])
-        return {v: j - i for v, i, j in zip(vals, a, z)}
+        return {v: j - i for v, (i, j) in _sectors(self.charges[b]).items()}
 
     def pauli_arrays(self) -> list[np.ndarray]:
         """The operator MPS in the Pauli basis I, X, Y, Z (complex tensors, the same canonical form).
 
         A_P[l, p, r] = sum_a A[l, a, r] conj(TO_CHARGE[a, p]); the contracted coefficients are the real Pauli
-        coefficients of W(t) (to rounding). Sweeps over these tensors must conjugate one layer (or, as the
-        bilinear sweeps of :mod:`mpo_fronts.readout` do, make no use of the canonical form).
+        coefficients of W(t) (to rounding). :meth:`real_pauli_arrays` gives real tensors.
         """
         Tc = TO_CHARGE.conj()
         return [np.einsum("lar,ap->lpr", A, Tc) for A in self.arrays]
+
+    def real_pauli_arrays(self) -> list[np.ndarray]:
+        """The operator as a real MPS over Pauli letters I, X, Y, Z, mixed canonical around ``center``.
+
+        Each bond gets the unitary change of basis that pairs its indices j of sectors q and -q into
+        (x + y) / sqrt 2 and i (x - y) / sqrt 2 (sector 0 stays); in the Hermitian gauge the tensors then become
+        real (their imaginary parts are rounding, dropped). This is the layout of
+        :class:`mpo_fronts.evolve.OperatorTEBD`, so every function of :mod:`mpo_fronts.readout`
+        (``read_operator(arrays, center)``, ``product_state_otoc``) and
+        :func:`mpo_fronts.evolve.bond_entropies` accept it.
+        """
+        Tc = TO_CHARGE.conj()
+        Ts = [np.ones((1, 1), dtype=complex)] + [_bond_real_basis(q) for q in self.charges] + \
+             [np.ones((1, 1), dtype=complex)]
+        out = []
+        for k, A in enumerate(self.arrays):
+            AP = np.einsum("lar,ap->lpr", A, Tc)
+            AP = np.tensordot(Ts[k].conj(), AP, axes=(0, 0))  # (m, p, r)
+            AP = np.tensordot(AP, Ts[k + 1], axes=(2, 0))  # (m, p, s)
+            out.append(np.ascontiguousarray(AP.real))
+        return out
 
     def profiles(self) -> dict[str, np.ndarray]:
         """``weights`` (L, 4) single-site Pauli weights (I, X, Y, Z; rows sum to 1), ``right_weight`` (L,)."""
@@ -267,7 +462,9 @@ class ChargeTEBD:
             if i < self.blocks_done:
                 continue
             if n:
-                for parity, d in block_layers(self.order, n, tau):
+                layers = (block_layers(self.order, n, tau) if self.splitting == "standard"
+                          else block_layers(self.order, n, tau, self.splitting))
+                for parity, d in layers:
                     self._apply_layer(parity, d)
                 self.max_step = max(self.max_step, tau)
             self.blocks_done = i + 1
@@ -278,13 +475,15 @@ class ChargeTEBD:
             if last:
                 yield k, self
 
-    def _layer_gates(self, d: float) -> np.ndarray:
-        key = float(d)
+    def _layer_gates(self, d: float) -> list:
+        """Per bond: {pair charge c: the (k_c, k_c) block of the charge-basis gate} for a layer of length d."""
+        key = float(d)  # exact: a resumed run must rebuild bit-identical gates
         G = self._gates.get(key)
         if G is None:
             if len(self._gates) > 16:
                 self._gates.clear()
-            G = charge_gates(self._hb, d)
+            Gc = charge_gates(self._hb, d)
+            G = [{c: np.ascontiguousarray(g[np.ix_(p, p)]) for c, p in _PAIRS.items()} for g in Gc]
             self._gates[key] = G
         return G
 
@@ -304,115 +503,204 @@ class ChargeTEBD:
         self.lo = min(self.lo, bonds[0])
         self.hi = max(self.hi, bonds[-1] + 1)
 
+    # ------------------------------------------------------------------ index maps (cached)
     def _q(self, k: int) -> np.ndarray:
         """Charges of bond k; k = -1 and L - 1 are the chain's edges."""
-        if k < 0:
-            return self._edge[0]
-        if k >= self.L - 1:
-            return self._edge[1]
+        if k < 0 or k >= self.L - 1:
+            return self._edge
         return self.charges[k]
 
+    def _cached(self, key, build):
+        m = self._maps.get(key)
+        if m is None:
+            if len(self._maps) >= _CACHE_SIZE:
+                self._maps.clear()
+            m = build()
+            self._maps[key] = m
+        return m
+
+    def _rows(self, q: np.ndarray) -> _Side:
+        """Rows (l, a) of a site matrix (D_left * 4, D_right) whose left bond has charges q."""
+        def build():
+            fq = (q[:, None] + LETTER_CHARGE[None, :]).reshape(-1)
+            fp = (_partner(q)[:, None] * 4 + _SWAP[None, :]).reshape(-1)
+            return _Side(fq, fp)
+        return self._cached(("r", q.tobytes()), build)
+
+    def _cols(self, q: np.ndarray) -> _Side:
+        """Columns (b, r) of a site matrix (D_left, 4 * D_right) whose right bond has charges q."""
+        def build():
+            fq = (q[None, :] - LETTER_CHARGE[:, None]).reshape(-1)
+            fp = (_SWAP[:, None] * q.size + _partner(q)[None, :]).reshape(-1)
+            return _Side(fq, fp)
+        return self._cached(("c", q.tobytes()), build)
+
+    def _gate_map(self, ql: np.ndarray, qr: np.ndarray) -> _GateMap:
+        return self._cached(("g", ql.tobytes(), qr.tobytes()),
+                            lambda: _GateMap(ql, qr, self._rows(ql), self._cols(qr)))
+
+    # ------------------------------------------------------------------ centre moves and gates
     def _move_center(self, target: int) -> None:
         arrays = self.arrays
         c = self.center
-        while c < target:  # A = Q R per sector of bond c; R goes into site c + 1
+        while c < target:  # A = Q R per sector of bond c (v >= 0; v < 0 by conjugation); R into site c + 1
             A, B = arrays[c], arrays[c + 1]
-            Dl, _, Dr = A.shape
-            m = A.reshape(Dl * 4, Dr)
-            rows = _grouped((self._q(c - 1)[:, None] + LETTER_CHARGE[None, :]).reshape(-1))
-            vals, a, z = _runs(self.charges[c])
-            B2 = B.reshape(Dr, -1)
-            qs, rs, labs, off = [], [], [], 0
-            for v, i, j in zip(vals, a, z):
-                r_idx = rows.get(v)
-                if r_idx is None:
-                    continue  # no row can carry this charge: these bond indices hold zeros and leave
-                q, r = np.linalg.qr(m[r_idx, i:j])
-                qs.append((r_idx, off, q))
-                rs.append(r @ B2[i:j])
-                labs.append(np.full(q.shape[1], v, dtype=np.int64))
-                off += q.shape[1]
-            newA = np.zeros((Dl * 4, off), dtype=complex)
-            for r_idx, o, q in qs:
-                newA[r_idx, o:o + q.shape[1]] = q
-            arrays[c] = newA.reshape(Dl, 4, off)
-            arrays[c + 1] = np.concatenate(rs).reshape(off, 4, -1)
-            self.charges[c] = np.concatenate(labs)
+            Dl, _, Dm = A.shape
+            rows = self._rows(self._q(c - 1))
+            Q, labs, parts = _block_qr(A.reshape(Dl * 4, Dm), rows, self.charges[c], right=True)
+            B2 = B.reshape(Dm, -1)
+            newB = np.empty((Q.shape[1], B2.shape[1]), dtype=complex)
+            for o, (i, j), r in parts:
+                np.matmul(r, B2[i:j], out=newB[o:o + r.shape[0]])
+            arrays[c] = Q.reshape(Dl, 4, -1)
+            arrays[c + 1] = newB.reshape(-1, 4, B.shape[2])
+            self.charges[c] = labs
             c += 1
-        while c > target:  # A^T = Q R per sector of bond c - 1; R^T goes into site c - 1
+        while c > target:  # A^T = Q R per sector of bond c - 1; R^T into site c - 1
             A, P = arrays[c], arrays[c - 1]
             Dl, _, Dr = A.shape
-            m = A.reshape(Dl, 4 * Dr)
-            cols = _grouped((self._q(c)[None, :] - LETTER_CHARGE[:, None]).reshape(-1))
-            vals, a, z = _runs(self.charges[c - 1])
+            cols = self._cols(self._q(c))
+            Q, labs, parts = _block_qr(A.reshape(Dl, 4 * Dr).T, cols, self.charges[c - 1], right=False)
             P2 = P.reshape(-1, Dl)
-            qs, rs, labs, off = [], [], [], 0
-            for v, i, j in zip(vals, a, z):
-                c_idx = cols.get(v)
-                if c_idx is None:
-                    continue
-                q, r = np.linalg.qr(m[i:j, c_idx].T)
-                qs.append((c_idx, off, q))
-                rs.append(P2[:, i:j] @ r.T)
-                labs.append(np.full(q.shape[1], v, dtype=np.int64))
-                off += q.shape[1]
-            newA = np.zeros((off, 4 * Dr), dtype=complex)
-            for c_idx, o, q in qs:
-                newA[o:o + q.shape[1], c_idx] = q.T
-            arrays[c] = newA.reshape(off, 4, Dr)
-            arrays[c - 1] = np.concatenate(rs, axis=1).reshape(P.shape[0], 4, off)
-            self.charges[c - 1] = np.concatenate(labs)
+            newP = np.empty((P2.shape[0], Q.shape[1]), dtype=complex)
+            for o, (i, j), r in parts:
+                np.matmul(P2[:, i:j], r.T, out=newP[:, o:o + r.shape[0]])
+            arrays[c] = Q.T.reshape(-1, 4, Dr)
+            arrays[c - 1] = newP.reshape(P.shape[0], 4, -1)
+            self.charges[c - 1] = labs
             c -= 1
         self.center = c
 
-    def _gate(self, b: int, G: np.ndarray, to_right: bool) -> None:
+    def _gate(self, b: int, G: dict, to_right: bool) -> None:
         A, B = self.arrays[b], self.arrays[b + 1]
         Dl, _, Dm = A.shape
         Dr = B.shape[2]
-        ncol = 4 * Dr
-        # rows (l, a) of theta carry q_l + c(a), columns (b, r) carry q_r - c(b): the charge of the middle bond
-        rows = _grouped((self._q(b - 1)[:, None] + LETTER_CHARGE[None, :]).reshape(-1))
-        cols = _grouped((self._q(b + 1)[None, :] - LETTER_CHARGE[:, None]).reshape(-1))
+        gm = self._gate_map(self._q(b - 1), self._q(b + 1))
+        rows, cols = gm.rows, gm.cols
         A2 = A.reshape(Dl * 4, Dm)
-        B2 = B.reshape(Dm, ncol)
-        flat = {}
-        theta = np.zeros(Dl * 4 * ncol, dtype=complex)
-        vals, a, z = _runs(self.charges[b])
-        for v, i, j in zip(vals, a, z):  # theta block by block over the old middle charge
-            r_idx, c_idx = rows.get(v), cols.get(v)
-            if r_idx is None or c_idx is None:
+        B2 = B.reshape(Dm, 4 * Dr)
+        mid = _sectors(self.charges[b])
+        # theta block by block over the middle charge (the same blocks before and after the gate)
+        pre = np.zeros(gm.size, dtype=complex)
+        for v, ridx, cidx, o, nr, nc in gm.blocks:
+            s = mid.get(v)
+            if s is not None:
+                i, j = s
+                np.matmul(A2[ridx, i:j], B2[i:j, cidx], out=pre[o:o + nr * nc].reshape(nr, nc))
+        post = np.empty_like(pre)
+        for c, idx in gm.pair_maps:  # the gate: entries of one (l, r) whose letter pairs have charge c
+            post[idx] = G[c] @ pre[idx]
+        # decompositions for v >= 0; v = 0 in real arithmetic
+        dec = []
+        for v, ridx, cidx, o, nr, nc in gm.blocks:
+            if v < 0:
                 continue
-            f = (r_idx * ncol)[:, None] + c_idx[None, :]
-            flat[v] = f
-            theta[f] = A2[r_idx, i:j] @ B2[i:j, c_idx]
-        theta = np.matmul(G, theta.reshape(Dl, 16, Dr)).reshape(-1)
-        blocks = []
-        for v, r_idx in rows.items():  # after the gate: blocks over the new middle charge
-            c_idx = cols.get(v)
-            if c_idx is None:
-                continue
-            f = flat.get(v)
-            if f is None:
-                f = (r_idx * ncol)[:, None] + c_idx[None, :]
-            blocks.append((v, r_idx, c_idx, theta[f]))
-        parts, disc, used = self._split(blocks, self.chi, self.cutoff, to_right, (Dl * 4, ncol))
-        self.ledger.add(b, disc, used)
-        k = sum(left.shape[1] for left, _ in parts)
+            M = post[o:o + nr * nc].reshape(nr, nc)
+            if v == 0:
+                u, s, vt = _svd(_to_real(M, rows.real0, cols.real0))
+            else:
+                u, s, vt = _svd(M)
+            dec.append((v, ridx, cidx, u, s, vt))
+        counts, disc = _keep([x[4] for x in dec], [1 if x[0] == 0 else 2 for x in dec], self.chi, self.cutoff)
+        self.ledger.add(b, disc, "svd")
+        sizes = {}
+        for (v, *_), kp in zip(dec, counts):
+            if kp:
+                sizes[v] = kp
+                if v:
+                    sizes[-v] = kp
+        labs = np.concatenate([np.full(sizes[v], v, dtype=np.int64) for v in sorted(sizes)])
+        offs, o = {}, 0
+        for v in sorted(sizes):
+            offs[v] = o
+            o += sizes[v]
+        k = o
         newA = np.zeros((Dl * 4, k), dtype=complex)
-        newB = np.zeros((k, ncol), dtype=complex)
-        labs, off = [], 0
-        for (v, r_idx, c_idx, _), (left, right) in zip(blocks, parts):
-            kp = left.shape[1]
+        newB = np.zeros((k, 4 * Dr), dtype=complex)
+        for (v, ridx, cidx, u, s, vt), kp in zip(dec, counts):
             if kp == 0:
                 continue
-            newA[r_idx, off:off + kp] = left
-            newB[off:off + kp, c_idx] = right
-            labs.append(np.full(kp, v, dtype=np.int64))
-            off += kp
+            u, s, vt = u[:, :kp], s[:kp], vt[:kp]
+            left, right = (u, s[:, None] * vt) if to_right else (u * s, vt)
+            if v == 0:
+                if rows.real0 is not None:
+                    left = _from_real_rows(left, rows.real0)
+                if cols.real0 is not None:
+                    right = _from_real_cols(right, cols.real0)
+            o = offs[v]
+            newA[ridx, o:o + kp] = left
+            newB[o:o + kp, cidx] = right
+            if v:
+                o = offs[-v]
+                newA[rows.partner[ridx], o:o + kp] = left.conj()
+                newB[o:o + kp, cols.partner[cidx]] = right.conj()
         self.arrays[b] = newA.reshape(Dl, 4, k)
         self.arrays[b + 1] = newB.reshape(k, 4, Dr)
-        self.charges[b] = np.concatenate(labs)
+        self.charges[b] = labs
         self.center = b + 1 if to_right else b
+
+
+def _block_qr(m: np.ndarray, side: _Side, q: np.ndarray, right: bool):
+    """Blockwise QR of m (rows grouped by ``side``, columns = the bond with sorted charges ``q``), Hermitian gauge.
+
+    Returns Q (rows, k) with the new bond's sectors in ascending charge, their charges, and ``(offset, (start,
+    stop), R)`` for every new sector: R (k_v, d_v) acts on the old bond's sector [start, stop). Sectors v > 0 are
+    factorized, v < 0 are their conjugates, v = 0 is done in real arithmetic; old sectors without rows are zero
+    and leave the bond.
+    """
+    sec = _sectors(q)
+    dec = {}
+    for v, (i, j) in sec.items():
+        if v < 0:
+            continue
+        ridx = side.groups.get(v)
+        if ridx is None:
+            continue
+        M = m[ridx, i:j]
+        if v == 0:
+            if side.real0 is None:
+                Qv, Rv = np.linalg.qr(np.ascontiguousarray(M.real))
+                Qv = Qv.astype(complex)
+            else:
+                Qv, Rv = np.linalg.qr(_to_real(M, side.real0, None))
+                Qv = _from_real_rows(Qv, side.real0)
+        else:
+            Qv, Rv = np.linalg.qr(M)
+        dec[v] = (ridx, Qv, Rv)
+    vs = sorted(set(dec) | {-v for v in dec})
+    sizes = {v: dec[abs(v)][1].shape[1] for v in vs}
+    k = sum(sizes.values())
+    Q = np.zeros((m.shape[0], k), dtype=complex)
+    parts, o = [], 0
+    for v in vs:
+        kp = sizes[v]
+        ridx, Qv, Rv = dec[abs(v)]
+        if v < 0:
+            Q[side.partner[ridx], o:o + kp] = Qv.conj()
+            parts.append((o, sec[v], Rv.conj()))
+        else:
+            Q[ridx, o:o + kp] = Qv
+            parts.append((o, sec[v], Rv))
+        o += kp
+    labs = np.concatenate([np.full(sizes[v], v, dtype=np.int64) for v in vs])
+    return Q, labs, parts
+
+
+def _bond_real_basis(q: np.ndarray) -> np.ndarray:
+    """Unitary T (D, D) of a bond with charges q: columns e_j (sector 0), (e_j + e_pj) / sqrt 2 and
+    i (e_j - e_pj) / sqrt 2 for the pairs j (sector q > 0), pj = pi(j) (sector -q)."""
+    D = q.size
+    T = np.zeros((D, D), dtype=complex)
+    p = _partner(q)
+    ar = np.arange(D)
+    zero = q == 0
+    T[ar[zero], ar[zero]] = 1.0
+    pos = np.flatnonzero(q > 0)
+    T[pos, pos] = _S
+    T[p[pos], pos] = _S
+    T[pos, p[pos]] = 1j * _S
+    T[p[pos], p[pos]] = -1j * _S
+    return T
 
 
 # -------------------------------------------------------------------------------------------- readout
@@ -474,7 +762,8 @@ def charge_profiles(engine: ChargeTEBD) -> dict[str, np.ndarray]:
     The same quantities as :func:`mpo_fronts.driver.operator_profiles` for the Pauli-basis engine, read from the
     charge-basis MPS with conjugated sweeps. p(X) = p(Y) = (q(+) + q(-)) / 2: W(t) has charge 0, so the cross
     terms between e_+ and e_- at one site vanish (module doc). The right-weight profile is the weight of strings
-    whose rightmost non-identity letter is at r, normalised to sum 1.
+    whose rightmost non-identity letter is at r, normalised to sum 1. The OTOC of probe V at site r is
+    C(r, t) = 2 * (sum of the weights of the letters anticommuting with V) (:func:`mpo_fronts.readout.otoc_from_weights`).
     """
     arrays, center = engine.arrays, engine.center
     q = charge_weights(arrays, center)
