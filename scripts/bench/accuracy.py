@@ -15,8 +15,8 @@ its statistical bound). The W = 1 files run to t = 200; the study stops at t = 4
 
 Engine runs (mf.evolve_otoc on the reference's own time grid):
   * truncation 'svd', order 2 (Strang), dt = 0.05 at every chi of --chis;
-  * truncation 'rsvd', order 2, dt = 0.05 at --rsvd-chis on --rsvd-cases (the mixed-field Ising chain, and
-    one Heisenberg chain to show that the Z2-graded blocks never take the randomized path);
+  * truncation 'rsvd', order 2, dt = 0.05 at --rsvd-chis on --rsvd-cases (the mixed-field Ising chain), and
+    on one Heisenberg chain at chi 32 to show that its Z2-graded blocks never take the randomized path;
   * truncation 'svd' at --trotter-chis with order 4 (Suzuki) dt = 0.1 and with dt = 'auto' (order 4
     Blanes-Moan, trotter_tol 1e-3).
 Before anything is compared, each run's small-time agreement is recorded (max |dC| and the largest relative
@@ -34,7 +34,10 @@ Estimators: 'norm' = the engine's C (weight anticommuting at r divided by the re
 1 - discarded_weight(t)); 'raw' = norm * (1 - discarded_weight(t)) (out of the original unit weight);
 'local' = norm * (1 - D_between(r, t)), where D_between is the cumulative weight discarded at the bonds
 between W's site and r (res.bond_discarded): weight lost there is taken to have stopped short of r, weight
-lost elsewhere to look like the kept weight at r.
+lost elsewhere to look like the kept weight at r; 'fill' = raw + (discarded_weight - D_between) * 1: the same
+split, but weight lost beyond r taken as saturated (C = 1, a random string anticommutes with V half the time);
+'sat' = raw + discarded_weight * min(1, norm(r) / max_r' norm(r')): all the lost weight taken as scrambled
+(C = 1) where the kept profile has saturated, in proportion to the kept profile elsewhere.
 
 Writes data/benchmarks/<out>.json (command, git commit, machine, every number, per-case crossing times) and
 the markdown tables to --md. One BLAS thread. A benchmark, not a test. Engine runs are cached in --cache
@@ -50,6 +53,7 @@ for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "NUMB
 
 import argparse  # noqa: E402
 import json  # noqa: E402
+import re  # noqa: E402
 import subprocess  # noqa: E402
 import sys  # noqa: E402
 import time  # noqa: E402
@@ -83,8 +87,9 @@ REGIONS = {"ahead": "1e-6 < C_exact < 1e-2", "front": "1e-2 <= C_exact <= 0.5",
            "front_rising": "1e-2 <= C_exact <= 0.5 and t before C_exact(r, t) first reaches min(0.5, 0.8 max_t C_exact(r, t))",
            "behind": "C_exact > 0.5"}
 THETAS = (1e-3, 1e-2, 0.1, 0.5)
-ESTIMATORS = ("norm", "raw", "local")
+ESTIMATORS = ("norm", "raw", "local", "fill", "sat")
 PAIRED = ("extrap",)  # needs the run at chi / 2 as well
+KEEP_CASES = ("norm", "sat")  # estimators whose per-case crossing times go into the JSON (main probe)
 SMALL_T = 1.0
 
 
@@ -173,6 +178,21 @@ def engine_run(case: dict, trotter: str, route: str, chi: int, cache: Path | Non
     return out
 
 
+def _rounded(x, digits: int = 5):
+    """Floats to `digits` significant digits (the JSON stays small; the study's numbers need no more)."""
+    if isinstance(x, dict):
+        return {k: _rounded(v, digits) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_rounded(v, digits) for v in x]
+    if isinstance(x, np.ndarray):
+        return _rounded(x.tolist(), digits)
+    if isinstance(x, (float, np.floating)):
+        return float(f"{float(x):.{digits}g}") if np.isfinite(x) else None
+    if isinstance(x, np.integer):
+        return int(x)
+    return x
+
+
 def _plain(x):
     if isinstance(x, np.generic):
         return x.item()
@@ -193,7 +213,11 @@ def estimates(run: dict, site: int, v: str) -> dict[str, np.ndarray]:
     r = np.arange(L)
     lo, hi = np.minimum(r, site), np.maximum(r, site)
     between = cum[:, hi] - cum[:, lo]  # bonds lo .. hi-1
-    return {"norm": norm, "raw": norm * (1.0 - dw), "local": norm * (1.0 - between)}
+    raw = norm * (1.0 - dw)
+    cmax = norm.max(axis=1, keepdims=True)
+    share = np.clip(norm / np.where(cmax > 0, cmax, 1.0), 0.0, 1.0)
+    return {"norm": norm, "raw": raw, "local": norm * (1.0 - between), "fill": raw + (dw - between) * 1.0,
+            "sat": raw + dw * share}
 
 
 # ------------------------------------------------------------------------------------------------ metrics
@@ -284,8 +308,8 @@ def analyse(case: dict, run: dict) -> dict:
         pv = {"small_t": small_t_check(case["times"], est["norm"], ex), "estimators": {}}
         for name in ESTIMATORS:
             rows = crossing_cases(case["times"], est[name], ex, case["L"], case["site"])
-            pv["estimators"][name] = {"regions": region_stats(est[name], ex, case["masks"][v]), "crossings": crossing_stats(rows),
-                                      "crossing_cases": rows}
+            pv["estimators"][name] = {"regions": region_stats(est[name], ex, case["masks"][v]),
+                                      "crossings": crossing_stats(rows), "crossing_cases": rows}
         out["probes"][v] = pv
     return out
 
@@ -398,7 +422,7 @@ def markdown(results: dict, cases: dict, command: str) -> str:
     lines.append("### Estimators of C (svd, order 2, dt 0.05), all chains pooled: median / 90th percentile of the "
                  "relative error\n")
     lines.append("norm: the engine's C (divided by the remaining weight 1 - dw(t)); raw: norm * (1 - dw(t)); local: "
-                 "norm * (1 - weight discarded at the bonds between W and r); extrap: norm at chi and chi / 2 "
+                 "norm * (1 - weight discarded at the bonds between W and r); fill: raw + 1 x (weight discarded elsewhere); sat: raw + dw(t) x min(1, norm(r) / max_r' norm(r')) (lost weight taken as scrambled, C = 1, where the kept profile is saturated); extrap: norm at chi and chi / 2 "
                  "extrapolated linearly in dw(t) to dw = 0. Signed: median of (C_est - C_exact) / C_exact.\n")
     lines.append("| chi | estimator | ahead | front, rising | front, all | behind | behind, signed | t* (all theta) |")
     lines.append("| --- | --- | --- | --- | --- | --- | --- | --- |")
@@ -514,12 +538,16 @@ def write_markdown(path: Path, md: str) -> None:
 # ------------------------------------------------------------------------------------------------ main
 def plan(args) -> list[tuple[str, str, str, int]]:
     runs = []
+    cap = dict(item.split("=") for item in args.max_chi)
     for case in args.cases:
-        runs += [(case, "o2_dt0.05", "svd", chi) for chi in args.chis]
+        runs += [(case, "o2_dt0.05", "svd", chi) for chi in args.chis if chi <= int(cap.get(case, chi))]
         if case in args.rsvd_cases:
             runs += [(case, "o2_dt0.05", "rsvd", chi) for chi in args.rsvd_chis]
+        elif case == args.rsvd_graded_check:
+            runs += [(case, "o2_dt0.05", "rsvd", 32)]
         for chi in args.trotter_chis:
-            runs += [(case, t, "svd", chi) for t in args.trotter if t != "o2_dt0.05"]
+            runs += [(case, t, "svd", chi) for t in args.trotter
+                     if t != "o2_dt0.05" and (t == "auto" or case not in args.no_o4)]
     return runs
 
 
@@ -536,12 +564,19 @@ def main() -> None:
     ap.add_argument("--cases", nargs="+", default=list(CASES), choices=list(CASES))
     ap.add_argument("--chis", nargs="+", type=int, default=[16, 32, 64, 128])
     ap.add_argument("--rsvd-chis", nargs="*", type=int, default=[16, 32, 64, 128])
-    ap.add_argument("--rsvd-cases", nargs="*", default=["mfi_L10_center", "heis_L10_W1_site0"], choices=list(CASES),
-                    help="the Heisenberg chain with W = Z is Z2-graded: its blocks never reach the size at which "
-                         "'rsvd' samples (truncation.rsvd_samples), so rsvd equals svd there (splits['rsvd'] = 0)")
+    ap.add_argument("--rsvd-cases", nargs="*", default=["mfi_L10_center"], choices=list(CASES))
+    ap.add_argument("--rsvd-graded-check", default="heis_L10_W1_site0",
+                    help="one Z2-graded case run with rsvd at chi 32 only: the Heisenberg chain with W = Z is graded, "
+                         "its blocks never reach the size at which 'rsvd' samples (truncation.rsvd_samples), so rsvd "
+                         "equals svd there (splits['rsvd'] = 0)")
     ap.add_argument("--trotter-chis", nargs="*", type=int, default=[32])
     ap.add_argument("--trotter", nargs="+", default=list(TROTTER), choices=list(TROTTER))
     ap.add_argument("--tmax-w1", type=float, default=40.0)
+    ap.add_argument("--max-chi", nargs="*", default=["heis_L14_W1_site0=64"], metavar="CASE=CHI",
+                    help="largest chi of the svd scan for a case (compute budget: the W = 1, site 0 case at chi 128 "
+                         "would take about 400 s here)")
+    ap.add_argument("--no-o4", nargs="*", default=["heis_L14_W1_site0", "heis_L14_W1_center"], choices=list(CASES),
+                    help="cases run without the order 4, dt 0.1 setting (compute budget)")
     ap.add_argument("--cache", default="/tmp/mpo_fronts_accuracy_cache")
     ap.add_argument("--out", default="accuracy")
     ap.add_argument("--md", default=str(ROOT / "data" / "benchmarks" / "accuracy.md"))
@@ -587,7 +622,18 @@ def main() -> None:
                   for name, c in cases.items()},
         "runs": {k: {kk: vv for kk, vv in r.items() if not kk.startswith("_")} for k, r in results["runs"].items()},
     }
-    path = write_json(args.out, payload)
+    for r in payload["runs"].values():
+        for v, pv in r["analysis"]["probes"].items():
+            for name, e in pv["estimators"].items():
+                rows = e.pop("crossing_cases")
+                if name in KEEP_CASES and v == cases[r["case"]]["probes"][0]:
+                    e["crossing_cases"] = {k: [row[k] for row in rows] for k in
+                                           ("side", "d", "theta", "tstar_exact", "tstar")}
+    path = write_json(args.out, _rounded(payload))
+    flat = lambda m: m.group(0)[0] + re.sub(r"\s*\n\s*", " ", m.group(1)) + m.group(0)[-1]  # noqa: E731
+    text = re.sub(r"\[\s*([^\[\]{}]*?)\s*\]", flat, path.read_text())  # lists of numbers on one line
+    text = re.sub(r"\{\s*([^\[\]{}]*?)\s*\}", flat, text)  # innermost objects on one line
+    path.write_text(text)
     write_markdown(Path(args.md), md)
     print(f"wrote {path} and {args.md}")
 
