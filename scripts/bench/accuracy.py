@@ -29,7 +29,8 @@ Measured, per run and probe, for each estimator of C:
   * crossing times t*(d; theta), theta in 1e-3, 1e-2, 0.1, 0.5, with mpo_fronts.analysis.crossing_times on
     each side of W (distance d = |r - site|), same time grid for both; relative error |t*_est - t*| / t* over
     the (side, d, theta) cases where the exact curve crosses; a case where the estimate does not cross is
-    counted as missed.
+    counted as missed. 'clear' crossings: the exact curve's largest value in the window is >= 1.2 theta (a curve
+    that saturates just above theta makes t* ill-conditioned).
 Estimators: 'norm' = the engine's C (weight anticommuting at r divided by the remaining Frobenius weight
 1 - discarded_weight(t)); 'raw' = norm * (1 - discarded_weight(t)) (out of the original unit weight);
 'local' = norm * (1 - D_between(r, t)), where D_between is the cumulative weight discarded at the bonds
@@ -91,6 +92,7 @@ ESTIMATORS = ("norm", "raw", "local", "fill", "sat")
 PAIRED = ("extrap",)  # needs the run at chi / 2 as well
 KEEP_CASES = ("norm", "sat")  # estimators whose per-case crossing times go into the JSON (main probe)
 SMALL_T = 1.0
+CLEAR = 1.2  # a crossing is 'clear' when max_t C_exact(r, t) >= CLEAR * theta
 
 
 # ------------------------------------------------------------------------------------------------ inputs
@@ -273,6 +275,7 @@ def crossing_cases(times, est, exact, L, site) -> list[dict]:
                     continue
                 tx = cx.tstar_any[j]
                 rows.append({"side": side, "d": int(abs(r - site)), "theta": theta, "tstar_exact": float(te),
+                             "margin": float(exact[:, r].max() / theta),
                              "tstar": float(tx) if np.isfinite(tx) else None,
                              "rel_err": float(abs(tx - te) / te) if np.isfinite(tx) else None})
     return rows
@@ -283,7 +286,9 @@ def crossing_stats(rows: list[dict]) -> dict:
     for theta in THETAS:
         sel = [r for r in rows if r["theta"] == theta]
         errs = np.array([r["rel_err"] for r in sel if r["rel_err"] is not None])
+        allerr = np.array([np.inf if r["rel_err"] is None else r["rel_err"] for r in sel])
         out[f"{theta:g}"] = {"n_cases": len(sel), "n_missed": int(sum(r["rel_err"] is None for r in sel)),
+                             "p90_missed_as_inf": float(np.quantile(allerr, 0.9, method="inverted_cdf")) if allerr.size else None,
                              **({"median": float(np.median(errs)), "p90": float(np.percentile(errs, 90)),
                                  "max": float(errs.max())} if errs.size else {})}
     return out
@@ -354,6 +359,8 @@ def add_paired(results: dict, cases: dict) -> None:
 
 # ------------------------------------------------------------------------------------------------ tables
 def fmt(x) -> str:
+    if x is not None and np.isinf(x):
+        return "miss"
     if x is None or (isinstance(x, float) and not np.isfinite(x)):
         return "-"
     if x == 0:
@@ -364,7 +371,8 @@ def fmt(x) -> str:
 def _cell(vals: np.ndarray, full: bool = False) -> str:
     if not vals.size:
         return "-"
-    parts = [np.median(vals), np.percentile(vals, 90)] + ([vals.max()] if full else [])
+    q = lambda p: np.quantile(vals, p, method="inverted_cdf")  # noqa: E731  (no interpolation: inf stays inf)
+    parts = [q(0.5), q(0.9)] + ([vals.max()] if full else [])
     return " / ".join(fmt(float(x)) for x in parts)
 
 
@@ -378,8 +386,40 @@ def _is_main(r, chi=None) -> bool:
 def markdown(results: dict, cases: dict, command: str) -> str:
     runs = results["runs"]
     lines = [f"Reproduce: `{command}` (one BLAS thread; engine seconds below are on a shared 2-core machine).\n"]
+    lines.append("### The references and the check at small times\n")
+    lines.append("Each chain is rebuilt from the fields stored in its reference file. small t: largest |C - C_exact| "
+                 "over t <= 1 and every site (before truncation acts), for each Trotter setting at chi 32: the "
+                 "rebuilt chains agree to the Trotter error. Crossings: the number of (side of W, d) cases where the "
+                 "exact curve crosses theta inside the time window, and in brackets how many of them are clear "
+                 "(max_t C_exact >= 1.2 theta).\n")
+    lines.append("| chain | reference | L | site | probe | t_max | small t: o2 dt 0.05 / o4 dt 0.1 / auto | "
+                 + " | ".join(f"crossings theta = {t:g}" for t in THETAS) + " |")
+    lines.append("| --- | --- | --- | --- | --- | --- | --- |" + " --- |" * len(THETAS))
+    for name, case in cases.items():
+        v = case["probes"][0]
+        small = []
+        for trot in TROTTER:
+            r = runs.get(run_key(name, trot, "svd", 32))
+            small.append(fmt(r["analysis"]["probes"][v]["small_t"]["max_abs"]) if r else "-")
+        base = runs.get(run_key(name, MAIN["trotter"], MAIN["route"], 32)) or next(
+            r for r in runs.values() if r["case"] == name)
+        rows = base["analysis"]["probes"][v]["estimators"]["norm"]["crossing_cases"]
+        counts = [f"{sum(x['theta'] == t for x in rows)} ({sum(x['theta'] == t and x['margin'] >= CLEAR for x in rows)})"
+                  for t in THETAS]
+        ref = case["reference_method"].split(" (")[0]
+        lines.append(f"| {name} | {ref} | {case['L']} | {case['site']} | {v} | {case['times'][-1]:g} | "
+                     + " / ".join(small) + " | " + " | ".join(counts) + " |")
+        if "typicality_file_vs_dense" in case:
+            chk = case["typicality_file_vs_dense"][v]
+            typ_note = (f"{name}: the stored typicality file ({case['file']}) against the dense curve: largest "
+                        f"difference {fmt(chk['max_abs_diff'])}, {100 * chk['share_within_2_bounds']:.1f} % of the "
+                        f"points within 2 and {100 * chk['share_within_3_bounds']:.1f} % within 3 of its "
+                        f"statistical bound.")
+    lines.append("")
+    if "typ_note" in locals():
+        lines.append(typ_note + "\n")
     lines.append("### Relative error of C by region against chi (svd, order 2 Strang, dt 0.05, the engine's C)\n")
-    lines.append("Cells: median / 90th percentile / max of |C - C_exact| / C_exact over the (t, r) points of the "
+    lines.append("Cells: median / 90th percentile / max of |C - C_exact| / C_exact (percentiles without interpolation) over the (t, r) points of the "
                  "region (count n). Ahead: 1e-6 < C_exact < 1e-2; front: 1e-2 <= C_exact <= 0.5, of which "
                  "'rising' is before C_exact(r) first reaches min(0.5, 0.8 max_t C_exact(r)); behind: C_exact > 0.5. dw: discarded weight "
                  "at the last time.\n")
@@ -402,7 +442,8 @@ def markdown(results: dict, cases: dict, command: str) -> str:
     lines.append("### Relative error of t*(d; theta) against chi (svd, order 2, dt 0.05, the engine's C)\n")
     lines.append("Cells: median / 90th percentile / max of |t* - t*_exact| / t*_exact over the (chain, side of W, "
                  "d) cases where the exact curve crosses theta, both interpolated on the reference's time grid "
-                 "(crossing_times); [cases, missed = the engine's curve does not cross].\n")
+                 "(crossing_times); [cases, missed = the engine's curve does not cross]. A missed crossing counts as an "
+                 "infinite error in the percentiles ('miss').\n")
     groups = {"Heisenberg L = 14": [n for n in cases if n.startswith("heis_L14")],
               "all chains": list(cases)}
     for gname, members in groups.items():
@@ -422,10 +463,13 @@ def markdown(results: dict, cases: dict, command: str) -> str:
     lines.append("### Estimators of C (svd, order 2, dt 0.05), all chains pooled: median / 90th percentile of the "
                  "relative error\n")
     lines.append("norm: the engine's C (divided by the remaining weight 1 - dw(t)); raw: norm * (1 - dw(t)); local: "
-                 "norm * (1 - weight discarded at the bonds between W and r); fill: raw + 1 x (weight discarded elsewhere); sat: raw + dw(t) x min(1, norm(r) / max_r' norm(r')) (lost weight taken as scrambled, C = 1, where the kept profile is saturated); extrap: norm at chi and chi / 2 "
-                 "extrapolated linearly in dw(t) to dw = 0. Signed: median of (C_est - C_exact) / C_exact.\n")
-    lines.append("| chi | estimator | ahead | front, rising | front, all | behind | behind, signed | t* (all theta) |")
-    lines.append("| --- | --- | --- | --- | --- | --- | --- | --- |")
+                 "norm * (1 - weight discarded at the bonds between W and r); fill: raw + 1 x (weight discarded "
+                 "elsewhere); sat: raw + dw(t) x min(1, norm(r) / max_r' norm(r')) (the lost weight taken as "
+                 "scrambled, C = 1, where the kept profile has saturated); extrap: norm at chi and chi / 2 "
+                 "extrapolated linearly in dw(t) to dw = 0 (needs both runs). Signed: median of "
+                 "(C_est - C_exact) / C_exact behind the front.\n")
+    lines.append("| chi | estimator | ahead | front, rising | front, all | behind | behind, signed |")
+    lines.append("| --- | --- | --- | --- | --- | --- | --- |")
     for chi in chis:
         for est in ESTIMATORS + PAIRED:
             sel = lambda r, c=chi: _is_main(r, c)  # noqa: E731
@@ -434,40 +478,56 @@ def markdown(results: dict, cases: dict, command: str) -> str:
             cells = [_cell(pooled_rel(results, cases, sel, region, est))
                      for region in ("ahead", "front_rising", "front", "behind")]
             signed = pooled_rel(results, cases, sel, "behind", est, signed=True)
-            cells.append(fmt(float(np.median(signed))) if signed.size and np.median(signed) >= 0 else
-                         (f"-{fmt(-float(np.median(signed)))}" if signed.size else "-"))
-            errs = np.concatenate([pooled_tstar(results, cases, sel, t, est)[0] for t in THETAS])
-            cells.append(_cell(errs))
+            med = float(np.median(signed)) if signed.size else None
+            cells.append("-" if med is None else (fmt(med) if med >= 0 else f"-{fmt(-med)}"))
             lines.append(f"| {chi} | {est} | " + " | ".join(cells) + " |")
     lines.append("")
-    lines.append("### Truncation route and Trotter setting (the engine's C), pooled over the chains run: median / "
-                 "90th percentile of the relative error\n")
-    lines.append("small t: largest |C - C_exact| at t <= 1 over those chains. Compare a row with the svd, order 2 "
-                 "row of the same chi.\n")
-    lines.append("| route | Trotter | chi | chains | ahead | front, rising | behind | t* (all theta) | small t | s |")
-    lines.append("| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |")
-    combos = sorted({(r["route"], r["trotter"], r["chi"]) for r in runs.values()})
-    extra = {(r["case"], r["chi"]) for r in runs.values() if not _is_main(r)}
-    for route, trot, chi in combos:
-        members = sorted({c for c, x in extra if x == chi})
-        if (route, trot) == (MAIN["route"], MAIN["trotter"]) and not members:
-            continue
-        sel = lambda r, a=route, b=trot, c=chi, m=tuple(members): (r["route"] == a and r["trotter"] == b  # noqa: E731
-                                                                   and r["chi"] == c and r["case"] in m)
+    lines.append("t* by estimator (same runs): median / 90th percentile of the relative error, a missed crossing "
+                 "counted as infinite ('miss') [missed/cases]. theta = 1e-3 "
+                 "and 1e-2 are left out: there dw is small and every estimator gives the same t* to 1e-4.\n")
+    lines.append("| chi | estimator | theta = 0.1 | theta = 0.5, all | theta = 0.5, clear |")
+    lines.append("| --- | --- | --- | --- | --- |")
+    for chi in chis:
+        for est in ("norm", "raw", "sat") + PAIRED:
+            sel = lambda r, c=chi: _is_main(r, c)  # noqa: E731
+            cells = []
+            for theta, clear in ((0.1, None), (0.5, None), (0.5, True)):
+                errs, n, missed = pooled_tstar(results, cases, sel, theta, est, clear)
+                if n:
+                    cells.append(f"{_cell(errs)} [{missed}/{n}]")
+            if cells:
+                lines.append(f"| {chi} | {est} | " + " | ".join(cells) + " |")
+    lines.append("")
+    lines.append("### Truncation route and Trotter setting (the engine's C): median / 90th percentile of the relative "
+                 "error; each setting beside svd, order 2, dt 0.05 at the same chi on the same chains\n")
+    lines.append("small t: largest |C - C_exact| at t <= 1. t*: all theta pooled [missed/cases].\n")
+    lines.append("| route | Trotter | chi | chains | ahead | front, rising | behind | t* | small t | dw (t_max), median "
+                 "| s |")
+    lines.append("| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |")
+    combos = sorted({(r["route"], r["trotter"], r["chi"]) for r in runs.values() if not _is_main(r)})
+
+    def row(route, trot, chi, members, label=None):
+        sel = lambda r: (r["route"] == route and r["trotter"] == trot and r["chi"] == chi  # noqa: E731
+                         and r["case"] in members)
         chosen = [r for r in runs.values() if sel(r)]
-        if not chosen:
-            continue
         cells = [_cell(pooled_rel(results, cases, sel, region, "norm")) for region in ("ahead", "front_rising", "behind")]
-        errs = np.concatenate([pooled_tstar(results, cases, sel, t, "norm")[0] for t in THETAS])
-        cells.append(_cell(errs))
+        tt = [pooled_tstar(results, cases, sel, t, "norm") for t in THETAS]
+        errs = np.concatenate([x[0] for x in tt])
+        cells.append(f"{_cell(errs)} [{sum(x[2] for x in tt)}/{sum(x[1] for x in tt)}]")
         small = max(r["analysis"]["probes"][cases[r["case"]]["probes"][0]]["small_t"]["max_abs"] for r in chosen)
+        dws = np.median([r["analysis"]["discarded_weight_final"] for r in chosen])
         secs = sum(r["analysis"]["seconds"] for r in chosen)
-        lines.append(f"| {route} | {trot} | {chi} | {len(chosen)} | " + " | ".join(cells)
-                     + f" | {fmt(small)} | {secs:.0f} |")
+        return (f"| {label or route} | {label and '(same chains)' or trot} | {chi} | {len(chosen)} | "
+                + " | ".join(cells) + f" | {fmt(small)} | {fmt(float(dws))} | {secs:.0f} |")
+
+    for route, trot, chi in combos:
+        members = sorted(r["case"] for r in runs.values() if (r["route"], r["trotter"], r["chi"]) == (route, trot, chi))
+        lines.append(row(route, trot, chi, members))
+        lines.append(row(MAIN["route"], MAIN["trotter"], chi, members, label="svd, order 2, dt 0.05"))
     lines.append("")
     conv_lines = []
     for chi in chis:
-        shares = {}
+        shares, ratios = {}, {}
         for region in ("ahead", "front_rising", "behind"):
             num = den = 0
             for r in runs.values():
@@ -477,12 +537,17 @@ def markdown(results: dict, cases: dict, command: str) -> str:
                 if c and c.get("n"):
                     num += c["share_diff_bounds_error"] * c["n"]
                     den += c["n"]
+                    ratios.setdefault(region, []).append(c["median_error_over_diff"])
             shares[region] = num / den if den else None
         if any(x is not None for x in shares.values()):
-            conv_lines.append(f"| {chi} vs {chi // 2} | " + " | ".join(fmt(shares[k]) for k in shares) + " |")
+            conv_lines.append(f"| {chi} vs {chi // 2} | " + " | ".join(
+                f"{fmt(shares[k])} ({fmt(float(np.median([x for x in ratios.get(k, []) if x is not None])))})"
+                if shares[k] is not None else "-" for k in shares) + " |")
     if conv_lines:
-        lines.append("### Does |C(chi) - C(chi/2)| bound the true error? Share of points where it does "
-                     "(svd, order 2, dt 0.05, all chains)\n")
+        lines.append("### Does |C(chi) - C(chi/2)| bound the true error? Share of points where it does, and in "
+                     "brackets the median over chains of the median of |C(chi) - C_exact| / |C(chi) - C(chi/2)| "
+                     "(svd, order 2, dt 0.05, all chains; ahead of the front the error is mostly Trotter error, "
+                     "which no change of chi reveals)\n")
         lines.append("| chi | ahead | front, rising | behind |")
         lines.append("| --- | --- | --- | --- |")
         lines += conv_lines
@@ -503,7 +568,7 @@ def pooled_rel(results, cases, sel, region, est, signed: bool = False) -> np.nda
     return np.concatenate(vals) if vals else np.array([])
 
 
-def pooled_tstar(results, cases, sel, theta, est):
+def pooled_tstar(results, cases, sel, theta, est, clear: bool | None = None):
     errs, n, missed = [], 0, 0
     for r in results["runs"].values():
         if not sel(r):
@@ -513,11 +578,12 @@ def pooled_tstar(results, cases, sel, theta, est):
         if e is None:
             continue
         for row in e["crossing_cases"]:
-            if row["theta"] != theta:
+            if row["theta"] != theta or (clear is not None and (row["margin"] >= CLEAR) != clear):
                 continue
             n += 1
             if row["rel_err"] is None:
                 missed += 1
+                errs.append(np.inf)  # a missed crossing counts as an infinite error in the percentiles
             else:
                 errs.append(row["rel_err"])
     return np.array(errs), n, missed
@@ -624,11 +690,13 @@ def main() -> None:
     }
     for r in payload["runs"].values():
         for v, pv in r["analysis"]["probes"].items():
+            if v != cases[r["case"]]["probes"][0]:  # second probe: the estimators of the recommendation only
+                pv["estimators"] = {k: e for k, e in pv["estimators"].items() if k in KEEP_CASES + ("raw",)}
             for name, e in pv["estimators"].items():
                 rows = e.pop("crossing_cases")
                 if name in KEEP_CASES and v == cases[r["case"]]["probes"][0]:
                     e["crossing_cases"] = {k: [row[k] for row in rows] for k in
-                                           ("side", "d", "theta", "tstar_exact", "tstar")}
+                                           ("side", "d", "theta", "margin", "tstar_exact", "tstar")}
     path = write_json(args.out, _rounded(payload))
     flat = lambda m: m.group(0)[0] + re.sub(r"\s*\n\s*", " ", m.group(1)) + m.group(0)[-1]  # noqa: E731
     text = re.sub(r"\[\s*([^\[\]{}]*?)\s*\]", flat, path.read_text())  # lists of numbers on one line
