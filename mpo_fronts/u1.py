@@ -24,9 +24,10 @@ conjugation), so every decomposition of a gate or of a centre move is computed f
 v < 0 factors are the conjugates of the v > 0 ones (their singular values are the same), and the v = 0 block,
 which carries the conjugation as an antilinear involution of its rows and columns, is brought to a *real*
 matrix of the same size by a fixed unitary change of basis (pairs (x + y) / sqrt 2, i (x - y) / sqrt 2) and
-decomposed in real arithmetic. One truncation then keeps the globally largest singular values across the
-blocks, counting a v != 0 value twice (for v and -v) and never separating such a pair, so the kept operator
-stays Hermitian; the discarded weight is the sum of the squares dropped, which is the norm loss exactly.
+decomposed in real arithmetic. One truncation across the blocks then keeps, within chi bond indices, the
+largest weight that never separates a (v, -v) pair (a v != 0 value stands for two indices): the operator stays
+U(1)-symmetric and Hermitian in the gauge above; the discarded weight is the sum of the squares dropped, which is
+the norm loss exactly.
 
 Only W = Z is evolved (charge 0; X and Y are not charge eigenstates). The single-site Pauli weights, the OTOCs of
 every probe X, Y, Z and the right-weight profile follow from the charge-basis weights (:func:`charge_profiles`);
@@ -119,12 +120,13 @@ def _partner(q: np.ndarray) -> np.ndarray:
 class _Side:
     """The row (or column) index of a site matrix, grouped by charge, with its Hermitian pairing.
 
-    ``groups[v]``: ascending flat indices of charge v; ``pos``: position of every index in its group; ``partner``:
-    the paired index (charge -v); ``real0``: positions (F, I, K) in group 0 of the self-paired indices and of the
-    pairs i < k (the real change of basis of the v = 0 block).
+    ``groups[v]``: the flat indices of charge v (ascending, except in group 0: first the self-paired indices, then
+    the pairs i < k as [i...] followed by [k...], so that the real change of basis of the v = 0 block works on
+    slices); ``pos``: position of every index in its group; ``partner``: the paired index (charge -v);
+    ``pgroups[v]``: ``partner[groups[v]]``; ``real0``: (number self-paired, number of pairs) in group 0.
     """
 
-    __slots__ = ("groups", "pos", "partner", "real0")
+    __slots__ = ("groups", "pos", "partner", "pgroups", "real0")
 
     def __init__(self, fq: np.ndarray, fp: np.ndarray):
         perm = np.argsort(fq, kind="stable")
@@ -132,95 +134,151 @@ class _Side:
         pos = np.empty(fq.size, dtype=np.int64)
         pos[perm] = np.arange(fq.size) - np.searchsorted(sq, sq, side="left")
         vals, a, z = _runs(sq)
-        self.groups = {v: perm[i:j] for v, i, j in zip(vals, a, z)}
-        self.pos = pos
-        self.partner = fp
-        g0 = self.groups.get(0)
-        if g0 is None:
-            self.real0 = None
-        else:
+        groups = {v: perm[i:j] for v, i, j in zip(vals, a, z)}
+        self.real0 = None
+        g0 = groups.get(0)
+        if g0 is not None:
             pp = pos[fp[g0]]
             ar = np.arange(g0.size)
-            F = np.flatnonzero(pp == ar)
-            I = np.flatnonzero(pp > ar)
-            self.real0 = (F, I, pp[I])
+            F, I = np.flatnonzero(pp == ar), np.flatnonzero(pp > ar)
+            g0 = np.concatenate([g0[F], g0[I], g0[pp[I]]])
+            groups[0] = g0
+            pos[g0] = np.arange(g0.size)
+            self.real0 = (F.size, I.size)
+        self.groups = groups
+        self.pos = pos
+        self.partner = fp
+        self.pgroups = {v: fp[g] for v, g in groups.items()}
 
 
 def _to_real(M: np.ndarray, rows, cols) -> np.ndarray:
-    """The real matrix T_r^dag M T_c of a v = 0 block (``rows``/``cols``: (F, I, K) positions, or None when the
-    index is self-paired everywhere)."""
+    """The real matrix T_r^dag M T_c of a v = 0 block (``rows``/``cols``: the ``real0`` counts of the sides, or
+    None for a side whose indices are all self-paired, the bond sector 0 of a centre move)."""
     if rows is not None:
-        F, I, K = rows
-        MI, MK = M[I], M[K]
-        M = np.concatenate([M[F], (MI + MK) * _S, (MI - MK) * (-1j * _S)])
+        f, n = rows
+        MI, MK = M[f:f + n], M[f + n:]
+        M = np.concatenate([M[:f], (MI + MK) * _S, (MI - MK) * (-1j * _S)])
     if cols is None:
         return np.ascontiguousarray(M.real)
-    F, I, K = cols
-    YI, YK = M[:, I], M[:, K]
-    return np.concatenate([M[:, F].real, (YI + YK).real * _S, (YI - YK).imag * (-_S)], axis=1)
+    f, n = cols
+    YI, YK = M[:, f:f + n], M[:, f + n:]
+    return np.concatenate([M[:, :f].real, (YI + YK).real * _S, (YI - YK).imag * (-_S)], axis=1)
 
 
 def _from_real_rows(u: np.ndarray, rows) -> np.ndarray:
     """T_r u: rows of a real factor back to the charge basis (complex), in group order."""
-    F, I, K = rows
-    nF, nI = F.size, I.size
+    f, n = rows
     out = np.empty(u.shape, dtype=complex)
-    out[F] = u[:nF]
-    a, b = u[nF:nF + nI], u[nF + nI:]
-    out[I] = (a + 1j * b) * _S
-    out[K] = (a - 1j * b) * _S
+    out[:f] = u[:f]
+    a, b = u[f:f + n], u[f + n:] * 1j
+    np.multiply(a + b, _S, out=out[f:f + n])
+    np.multiply(a - b, _S, out=out[f + n:])
     return out
 
 
 def _from_real_cols(vt: np.ndarray, cols) -> np.ndarray:
     """vt T_c^dag: columns of a real factor back to the charge basis (complex), in group order."""
-    F, I, K = cols
-    nF, nI = F.size, I.size
+    f, n = cols
     out = np.empty(vt.shape, dtype=complex)
-    out[:, F] = vt[:, :nF]
-    a, b = vt[:, nF:nF + nI], vt[:, nF + nI:]
-    out[:, I] = (a - 1j * b) * _S
-    out[:, K] = (a + 1j * b) * _S
+    out[:, :f] = vt[:, :f]
+    a, b = vt[:, f:f + n], vt[:, f + n:] * 1j
+    np.multiply(a - b, _S, out=out[:, f:f + n])
+    np.multiply(a + b, _S, out=out[:, f + n:])
     return out
 
 
-def _svd(m: np.ndarray):
-    import scipy.linalg
+_LAPACK: dict = {}
 
-    try:
-        return scipy.linalg.svd(m, full_matrices=False, lapack_driver="gesdd", check_finite=False)
-    except np.linalg.LinAlgError:  # pragma: no cover - rare convergence failure of gesdd
+
+def _lapack(names: tuple, dtype) -> tuple:
+    fns = _LAPACK.get((names, dtype))
+    if fns is None:
+        from scipy.linalg import lapack
+
+        fns = lapack.get_lapack_funcs(names, dtype=dtype)
+        _LAPACK[(names, dtype)] = fns
+    return fns
+
+
+_LWORK: dict = {}
+
+
+def _svd(m: np.ndarray):
+    """Thin SVD (u, s, vt) by LAPACK gesdd (gesvd if it fails to converge), called directly: at the block sizes
+    of the engine scipy's argument handling and workspace query cost a noticeable part of the call."""
+    key = (m.dtype.char, m.shape)
+    lw = _LWORK.get(key)
+    gesdd, gesdd_lwork = _lapack(("gesdd", "gesdd_lwork"), m.dtype)
+    if lw is None:
+        from scipy.linalg.lapack import _compute_lwork
+
+        lw = _compute_lwork(gesdd_lwork, m.shape[0], m.shape[1], compute_uv=1, full_matrices=0)
+        if len(_LWORK) > 4096:
+            _LWORK.clear()
+        _LWORK[key] = lw
+    u, s, vt, info = gesdd(m, compute_uv=1, full_matrices=0, lwork=lw)
+    if info != 0:  # pragma: no cover - rare convergence failure of gesdd
+        import scipy.linalg
+
         return scipy.linalg.svd(m, full_matrices=False, lapack_driver="gesvd", check_finite=False)
+    return u, s, vt
+
+
+def _qr(m: np.ndarray):
+    """Thin QR (q, r) by LAPACK geqrf and orgqr/ungqr, called directly (see :func:`_svd`)."""
+    rows, cols = m.shape
+    if rows < cols:
+        return np.linalg.qr(m)
+    geqrf, orgqr = _lapack(("geqrf", "orgqr" if m.dtype.kind == "f" else "ungqr"), m.dtype)
+    qr, tau, _, info = geqrf(m)
+    if info != 0:  # pragma: no cover
+        return np.linalg.qr(m)
+    r = np.triu(qr[:cols])
+    q, _, info = orgqr(qr, tau)
+    if info != 0:  # pragma: no cover
+        return np.linalg.qr(m)
+    return q, r
 
 
 def _keep(svals: list[np.ndarray], mult: list[int], chi: int, cutoff: float):
     """How many values of each block a truncation keeps, and the weight it drops.
 
     ``svals``: descending singular values per block, ``mult``: how many bond indices each value of the block
-    stands for (1 for v = 0, 2 for a v, -v pair). The largest values are kept, in descending order, while their
-    indices fit in ``chi`` (a pair that does not fit ends the selection); values at or below ``SVD_FLOOR`` times
-    the largest are numerical zeros; then the smallest kept values are dropped while their summed weight stays at
-    or below ``cutoff``. At least one value is kept.
+    stands for (1 for the v = 0 block, 2 for a (v, -v) pair). Values at or below ``SVD_FLOOR`` times the largest
+    are numerical zeros. Of the others, the selection with the largest kept weight whose indices fit in ``chi``
+    is kept, pairs whole: the largest p pairs and the largest s single values, p chosen by trying every count
+    (with 2 p + s <= chi the kept weight is largest for prefixes of both sorted lists; more pairs on a tie).
+    Then the smallest kept values are dropped while their summed weight stays at or below ``cutoff``. At least
+    one value is kept. Returns (values kept per block, weight dropped = sum over the others of mult * s^2).
     """
+    sizes = [s.size for s in svals]
     s_all = np.concatenate(svals)
-    m_all = np.concatenate([np.full(s.size, m, dtype=np.int64) for s, m in zip(svals, mult)])
+    m_all = np.repeat(np.asarray(mult, dtype=np.int64), sizes)
     w_all = s_all * s_all * m_all
     order = np.argsort(-s_all, kind="stable")
-    s_sorted = s_all[order]
-    n = int(np.count_nonzero(s_sorted > SVD_FLOOR * s_sorted[0])) if s_sorted[0] > 0 else 1
-    n = int(np.searchsorted(np.cumsum(m_all[order[:n]]), chi, side="right"))
-    if cutoff > 0 and n > 1:
-        tail = np.cumsum(w_all[order[n - 1::-1]])
-        n = max(1, n - int(np.searchsorted(tail, cutoff, side="right")))
-    n = max(n, 1)
-    kept = np.zeros(s_all.size, dtype=bool)
-    kept[order[:n]] = True
-    disc = float(np.sum(w_all[~kept]))
-    counts, off = [], 0
-    for s in svals:
-        counts.append(int(np.count_nonzero(kept[off:off + s.size])))  # a block's kept values are its largest
-        off += s.size
-    return counts, disc
+    smax = s_all[order[0]]
+    order = order[s_all[order] > SVD_FLOOR * smax] if smax > 0 else order[:1]
+    single, pair = order[m_all[order] == 1], order[m_all[order] == 2]
+    # one more pair gains its weight and loses the 0, 1 or 2 smallest single values that no longer fit; the gains
+    # decrease with p (concave total), so the best p is the number of gains >= 0 (compared value by value, not
+    # as differences of cumulative sums, which would hide values below the rounding of the total)
+    n_p = min(pair.size, chi // 2)
+    s = np.minimum(single.size, chi - 2 * np.arange(n_p + 1))
+    ws = np.concatenate((w_all[single], [0.0, 0.0]))
+    lose = np.where(s[:-1] > s[1:], ws[s[1:]], 0.0) + np.where(s[:-1] > s[1:] + 1, ws[s[1:] + 1], 0.0)
+    best = int(np.count_nonzero(w_all[pair[:n_p]] >= lose))
+    kept = np.concatenate((pair[:best], single[:s[best]]))
+    if kept.size == 0:  # pragma: no cover - chi >= 2 always fits the largest value
+        kept = order[:1]
+    if cutoff > 0 and kept.size > 1:
+        kept = kept[np.argsort(s_all[kept], kind="stable")[::-1]]  # descending
+        tail = np.cumsum(w_all[kept[::-1]])
+        kept = kept[:max(1, kept.size - int(np.searchsorted(tail, cutoff, side="right")))]
+    mask = np.ones(s_all.size, dtype=bool)
+    mask[kept] = False
+    block = np.repeat(np.arange(len(svals)), sizes)
+    counts = np.bincount(block[kept], minlength=len(svals)).tolist()  # a block keeps its largest values
+    return counts, float(np.sum(w_all[mask]))
 
 
 class _GateMap:
@@ -268,10 +326,10 @@ class ChargeTEBD:
     The same evolution interface as :class:`mpo_fronts.evolve.OperatorTEBD` (``run``, ``state_dict``,
     ``load_state_dict``, ``norm2``, ``ledger``, ``discarded_weight``, ``t``, ``center``, ``max_bond``,
     ``max_step``, ``blocks_done``, ``splits``); results equal it to rounding where neither truncates. With
-    truncation both keep the globally largest singular values of each two-site block, but where the cut falls
-    inside a degenerate pair (v, -v) this engine keeps or drops the pair whole (the operator stays Hermitian),
-    while the Pauli-basis engines keep one combination of it; the two then differ by an amount of the order of
-    the truncation error.
+    truncation both keep the largest singular values of each two-site block, but where the cut falls inside a
+    degenerate pair (v, -v) this engine keeps or drops the pair whole (the operator stays U(1)-symmetric, so
+    C_X = C_Y exactly as in the exact evolution), while the Z2 engine keeps one combination of it (which
+    breaks the symmetry slightly); the two then differ by an amount of the order of the truncation error.
 
     Parameters
     ----------
@@ -632,8 +690,8 @@ class ChargeTEBD:
             newB[o:o + kp, cidx] = right
             if v:
                 o = offs[-v]
-                newA[rows.partner[ridx], o:o + kp] = left.conj()
-                newB[o:o + kp, cols.partner[cidx]] = right.conj()
+                newA[rows.pgroups[v], o:o + kp] = left.conj()
+                newB[o:o + kp, cols.pgroups[v]] = right.conj()
         self.arrays[b] = newA.reshape(Dl, 4, k)
         self.arrays[b + 1] = newB.reshape(k, 4, Dr)
         self.charges[b] = labs
@@ -658,14 +716,10 @@ def _block_qr(m: np.ndarray, side: _Side, q: np.ndarray, right: bool):
             continue
         M = m[ridx, i:j]
         if v == 0:
-            if side.real0 is None:
-                Qv, Rv = np.linalg.qr(np.ascontiguousarray(M.real))
-                Qv = Qv.astype(complex)
-            else:
-                Qv, Rv = np.linalg.qr(_to_real(M, side.real0, None))
-                Qv = _from_real_rows(Qv, side.real0)
+            Qv, Rv = _qr(_to_real(M, side.real0, None))
+            Qv = _from_real_rows(Qv, side.real0)
         else:
-            Qv, Rv = np.linalg.qr(M)
+            Qv, Rv = _qr(M)
         dec[v] = (ridx, Qv, Rv)
     vs = sorted(set(dec) | {-v for v in dec})
     sizes = {v: dec[abs(v)][1].shape[1] for v in vs}
@@ -676,7 +730,7 @@ def _block_qr(m: np.ndarray, side: _Side, q: np.ndarray, right: bool):
         kp = sizes[v]
         ridx, Qv, Rv = dec[abs(v)]
         if v < 0:
-            Q[side.partner[ridx], o:o + kp] = Qv.conj()
+            Q[side.pgroups[-v], o:o + kp] = Qv.conj()
             parts.append((o, sec[v], Rv.conj()))
         else:
             Q[ridx, o:o + kp] = Qv

@@ -187,3 +187,26 @@ def test_bad_arguments_raise_input_errors_naming_them(kwargs, arg, word):
     with pytest.raises(InputError, match=word) as info:
         ChargeTEBD(chain, w, 2, **{"chi": 16, **kwargs})
     assert info.value.arg == arg
+
+
+# ---------------------------------------------------------------------------------------- the selection
+@pytest.mark.parametrize("seed", range(6))
+def test_pair_selection_is_the_best_within_chi(seed):
+    # brute force over every choice of a prefix per block (block 0: single values, the others: (v, -v) pairs of
+    # two indices each) that fits in chi: _keep finds the largest kept weight and reports the rest as dropped
+    import itertools
+
+    from mpo_fronts.u1 import _keep
+
+    rng = np.random.default_rng(seed)
+    svals = [np.sort(rng.random(n))[::-1] for n in (5, 4, 3)]
+    mult = [1, 2, 2]
+    total = sum(m * np.sum(s * s) for s, m in zip(svals, mult))
+    for chi in (2, 3, 5, 8, 11):
+        counts, disc = _keep(svals, mult, chi, 0.0)
+        assert sum(c * m for c, m in zip(counts, mult)) <= chi
+        best = max(sum(m * np.sum(s[:c] ** 2) for s, m, c in zip(svals, mult, cs))
+                   for cs in itertools.product(*(range(s.size + 1) for s in svals))
+                   if sum(c * m for c, m in zip(cs, mult)) <= chi)
+        kept = sum(m * np.sum(s[:c] ** 2) for s, m, c in zip(svals, mult, counts))
+        assert abs(kept - best) < 1e-12 and abs(disc - (total - kept)) < 1e-12
