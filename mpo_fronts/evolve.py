@@ -21,7 +21,7 @@ letters): a gate on two identity letters is the identity, so skipping it is exac
 from __future__ import annotations
 
 import os
-from numbers import Integral, Real
+from numbers import Integral
 from typing import Callable, Iterator, Sequence
 
 import numpy as np
@@ -92,7 +92,80 @@ def check_site(site, L: int) -> int:
 
 
 # -------------------------------------------------------------------------------------------- engine
-class OperatorTEBD:
+class BrickworkEngine:
+    """What every engine shares: the brickwork loop over blocks of Trotter steps, the gate cache and the
+    truncation bookkeeping. A subclass sets ``L``, ``dt``, ``order``, ``splitting``, ``chunk``, ``ledger``,
+    ``arrays``, ``center``, ``lo``, ``hi``, ``t``, ``blocks_done``, ``max_step``, ``_gates`` and implements
+    ``_build_gates(d)`` (one gate per bond for a layer of length d), ``_move_center(site)`` and
+    ``_gate(b, G_b, to_right)``."""
+
+    @property
+    def max_bond(self) -> int:
+        """Largest bond dimension of the operator now."""
+        return max(A.shape[2] for A in self.arrays)
+
+    @property
+    def discarded_weight(self) -> float:
+        """Cumulative discarded weight: the norm loss of W(t) (see :attr:`ledger`)."""
+        return self.ledger.total
+
+    @property
+    def splits(self) -> dict[str, int]:
+        """Gates per truncation route that actually ran."""
+        return self.ledger.splits
+
+    def run(self, times: Sequence[float], hook: Callable[["BrickworkEngine"], None] | None = None
+            ) -> Iterator[tuple[int, "BrickworkEngine"]]:
+        """Evolve to each requested time in turn, yielding ``(k, self)`` at times[k].
+
+        Resumes after ``blocks_done`` blocks of the plan (for a restored checkpoint). ``hook(self)`` is called
+        after every block, when the operator is a physical state at time ``self.t``.
+        """
+        plan = step_plan(times, self.dt, self.chunk)
+        ts = np.asarray(times, dtype=float).reshape(-1)
+        for i, (k, n, tau) in enumerate(plan):
+            if i < self.blocks_done:
+                continue
+            if n:
+                for parity, d in block_layers(self.order, n, tau, self.splitting):
+                    self._apply_layer(parity, d)
+                self.max_step = max(self.max_step, tau)
+            self.blocks_done = i + 1
+            last = i + 1 == len(plan) or plan[i + 1][0] != k
+            self.t = float(ts[k]) if last else self.t + n * tau
+            if hook is not None:
+                hook(self)
+            if last:
+                yield k, self
+
+    def _layer_gates(self, d: float):
+        key = float(d)  # exact: a resumed run must rebuild bit-identical gates
+        G = self._gates.get(key)
+        if G is None:
+            if len(self._gates) > 16:
+                self._gates.clear()
+            G = self._build_gates(d)
+            self._gates[key] = G
+        return G
+
+    def _apply_layer(self, parity: int, d: float) -> None:
+        bonds = [b for b in range(parity, self.L - 1, 2) if b <= self.hi and b + 1 >= self.lo]
+        if not bonds:
+            return
+        G = self._layer_gates(d)
+        if abs(self.center - bonds[0]) <= abs(self.center - bonds[-1] - 1):
+            for b in bonds:
+                self._move_center(b)
+                self._gate(b, G[b], to_right=True)
+        else:
+            for b in reversed(bonds):
+                self._move_center(b + 1)
+                self._gate(b, G[b], to_right=False)
+        self.lo = min(self.lo, bonds[0])
+        self.hi = max(self.hi, bonds[-1] + 1)
+
+
+class OperatorTEBD(BrickworkEngine):
     """Heisenberg-picture TEBD of a Pauli operator W on a nearest-neighbour chain.
 
     Parameters
@@ -178,21 +251,6 @@ class OperatorTEBD:
         self.max_step = 0.0
 
     # ------------------------------------------------------------------ bookkeeping
-    @property
-    def max_bond(self) -> int:
-        """Largest bond dimension of the operator now."""
-        return max(A.shape[2] for A in self.arrays)
-
-    @property
-    def discarded_weight(self) -> float:
-        """Cumulative discarded weight: the norm loss 1 - sum_S c_S^2 (see :attr:`ledger`)."""
-        return self.ledger.total
-
-    @property
-    def splits(self) -> dict[str, int]:
-        """Gates per truncation route that actually ran."""
-        return self.ledger.splits
-
     def norm2(self) -> float:
         """Frobenius weight sum_S c_S^2 (from the orthogonality centre)."""
         A = self.arrays[self.center]
@@ -227,55 +285,8 @@ class OperatorTEBD:
             self.labels = [np.asarray(x, dtype=np.int8) for x in state["labels"]]
 
     # ------------------------------------------------------------------ evolution
-    def run(self, times: Sequence[float], hook: Callable[["OperatorTEBD"], None] | None = None
-            ) -> Iterator[tuple[int, "OperatorTEBD"]]:
-        """Evolve to each requested time in turn, yielding ``(k, self)`` at times[k].
-
-        Resumes after ``blocks_done`` blocks of the plan (for a restored checkpoint). ``hook(self)`` is called
-        after every block, when the operator is a physical state at time ``self.t``.
-        """
-        plan = step_plan(times, self.dt, self.chunk)
-        ts = np.asarray(times, dtype=float).reshape(-1)
-        for i, (k, n, tau) in enumerate(plan):
-            if i < self.blocks_done:
-                continue
-            if n:
-                for parity, d in block_layers(self.order, n, tau, self.splitting):
-                    self._apply_layer(parity, d)
-                self.max_step = max(self.max_step, tau)
-            self.blocks_done = i + 1
-            last = i + 1 == len(plan) or plan[i + 1][0] != k
-            self.t = float(ts[k]) if last else self.t + n * tau
-            if hook is not None:
-                hook(self)
-            if last:
-                yield k, self
-
-    def _layer_gates(self, d: float) -> np.ndarray:
-        key = float(d)  # exact: a resumed run must rebuild bit-identical gates
-        G = self._gates.get(key)
-        if G is None:
-            if len(self._gates) > 16:
-                self._gates.clear()
-            G = transfer_matrices(bond_propagators(self._hb, d))
-            self._gates[key] = G
-        return G
-
-    def _apply_layer(self, parity: int, d: float) -> None:
-        bonds = [b for b in range(parity, self.L - 1, 2) if b <= self.hi and b + 1 >= self.lo]
-        if not bonds:
-            return
-        G = self._layer_gates(d)
-        if abs(self.center - bonds[0]) <= abs(self.center - bonds[-1] - 1):
-            for b in bonds:
-                self._move_center(b)
-                self._gate(b, G[b], to_right=True)
-        else:
-            for b in reversed(bonds):
-                self._move_center(b + 1)
-                self._gate(b, G[b], to_right=False)
-        self.lo = min(self.lo, bonds[0])
-        self.hi = max(self.hi, bonds[-1] + 1)
+    def _build_gates(self, d: float) -> np.ndarray:
+        return transfer_matrices(bond_propagators(self._hb, d))
 
     def _bond_labels(self, k: int) -> np.ndarray:
         """Parity labels of bond k (between sites k and k+1); k = -1 and L-1 are the chain's edges."""

@@ -39,15 +39,14 @@ over Pauli letters in the same canonical form, which every function of :mod:`mpo
 
 from __future__ import annotations
 
-from typing import Any, Callable, Iterator, Sequence
+from typing import Any, Sequence
 
 import numpy as np
 
 from .errors import InputError
-from .evolve import check_site, check_w, keep_freed_memory
+from .evolve import BrickworkEngine, check_site, check_w, keep_freed_memory
 from .models import Chain
 from .pauli import bond_propagators, transfer_matrices
-from .schedules import block_layers, step_plan
 from .settings import EvolutionSettings
 from .truncation import SVD_FLOOR, TruncationLedger
 
@@ -320,7 +319,7 @@ class _GateMap:
 
 
 # -------------------------------------------------------------------------------------------- engine
-class ChargeTEBD:
+class ChargeTEBD(BrickworkEngine):
     """Heisenberg-picture TEBD of W = Z with U(1) charge blocks, for chains that conserve total S^z.
 
     The same evolution interface as :class:`mpo_fronts.evolve.OperatorTEBD` (``run``, ``state_dict``,
@@ -424,21 +423,6 @@ class ChargeTEBD:
         self.max_step = 0.0
 
     # ------------------------------------------------------------------ bookkeeping
-    @property
-    def max_bond(self) -> int:
-        """Largest bond dimension of the operator now."""
-        return max(A.shape[2] for A in self.arrays)
-
-    @property
-    def discarded_weight(self) -> float:
-        """Cumulative discarded weight: the norm loss 1 - sum_S |d_S|^2 (see :attr:`ledger`)."""
-        return self.ledger.total
-
-    @property
-    def splits(self) -> dict[str, int]:
-        """Gates per truncation route that actually ran."""
-        return self.ledger.splits
-
     def norm2(self) -> float:
         """Frobenius weight sum_S |d_S|^2 = Tr(W(t)^2) / 2^L (from the orthogonality centre)."""
         A = self.arrays[self.center]
@@ -507,59 +491,10 @@ class ChargeTEBD:
         self.max_step = float(state.get("max_step", 0.0))
 
     # ------------------------------------------------------------------ evolution
-    def run(self, times: Sequence[float], hook: Callable[["ChargeTEBD"], None] | None = None
-            ) -> Iterator[tuple[int, "ChargeTEBD"]]:
-        """Evolve to each requested time in turn, yielding ``(k, self)`` at times[k].
-
-        Resumes after ``blocks_done`` blocks of the plan (for a restored checkpoint). ``hook(self)`` is called
-        after every block, when the operator is a physical state at time ``self.t``.
-        """
-        plan = step_plan(times, self.dt, self.chunk)
-        ts = np.asarray(times, dtype=float).reshape(-1)
-        for i, (k, n, tau) in enumerate(plan):
-            if i < self.blocks_done:
-                continue
-            if n:
-                layers = (block_layers(self.order, n, tau) if self.splitting == "standard"
-                          else block_layers(self.order, n, tau, self.splitting))
-                for parity, d in layers:
-                    self._apply_layer(parity, d)
-                self.max_step = max(self.max_step, tau)
-            self.blocks_done = i + 1
-            last = i + 1 == len(plan) or plan[i + 1][0] != k
-            self.t = float(ts[k]) if last else self.t + n * tau
-            if hook is not None:
-                hook(self)
-            if last:
-                yield k, self
-
-    def _layer_gates(self, d: float) -> list:
+    def _build_gates(self, d: float) -> list:
         """Per bond: {pair charge c: the (k_c, k_c) block of the charge-basis gate} for a layer of length d."""
-        key = float(d)  # exact: a resumed run must rebuild bit-identical gates
-        G = self._gates.get(key)
-        if G is None:
-            if len(self._gates) > 16:
-                self._gates.clear()
-            Gc = charge_gates(self._hb, d)
-            G = [{c: np.ascontiguousarray(g[np.ix_(p, p)]) for c, p in _PAIRS.items()} for g in Gc]
-            self._gates[key] = G
-        return G
-
-    def _apply_layer(self, parity: int, d: float) -> None:
-        bonds = [b for b in range(parity, self.L - 1, 2) if b <= self.hi and b + 1 >= self.lo]
-        if not bonds:
-            return
-        G = self._layer_gates(d)
-        if abs(self.center - bonds[0]) <= abs(self.center - bonds[-1] - 1):
-            for b in bonds:
-                self._move_center(b)
-                self._gate(b, G[b], to_right=True)
-        else:
-            for b in reversed(bonds):
-                self._move_center(b + 1)
-                self._gate(b, G[b], to_right=False)
-        self.lo = min(self.lo, bonds[0])
-        self.hi = max(self.hi, bonds[-1] + 1)
+        return [{c: np.ascontiguousarray(g[np.ix_(p, p)]) for c, p in _PAIRS.items()}
+                for g in charge_gates(self._hb, d)]
 
     # ------------------------------------------------------------------ index maps (cached)
     def _q(self, k: int) -> np.ndarray:
