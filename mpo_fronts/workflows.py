@@ -68,16 +68,10 @@ def check_against_exact(description: RunDescription, L: int = 10, realizations: 
     -------
     ExactCheck
     """
-    from .exact import exact_otoc
+    from .exact import MAX_DENSE_L, exact_otoc
 
-    if isinstance(L, bool) or not isinstance(L, int) or not 2 <= L <= 12:
-        raise InputError(f"L must be an integer in 2..12 for the exact check (dense exact evolution holds 4^L "
-                         f"numbers per operator), got {L!r}", arg="L")
-    if L > description.L:
-        raise InputError(f"L = {L} exceeds the chain length of the description (model.L = {description.L})",
-                         arg="L")
-    if isinstance(realizations, bool) or not isinstance(realizations, int) or realizations < 1:
-        raise InputError(f"realizations must be a positive integer, got {realizations!r}", arg="realizations")
+    _check_small(description, L, realizations, MAX_DENSE_L, "for the exact check (dense exact evolution holds 4^L numbers "
+                 "per operator)")
     site = description.site_at(L)
     times = description.times
     worst = {"max_deviation": -1.0}
@@ -114,6 +108,17 @@ def check_against_exact(description: RunDescription, L: int = 10, realizations: 
                       deviation_by_time=by_time.tolist())
 
 
+def _check_small(description: RunDescription, L, realizations, max_L: int, why: str) -> None:
+    """The chain length and realization count of a dense check at small L (errors name L / realizations)."""
+    if isinstance(L, bool) or not isinstance(L, int) or not 2 <= L <= max_L:
+        raise InputError(f"L must be an integer in 2..{max_L} {why}, got {L!r}", arg="L")
+    if L > description.L:
+        raise InputError(f"L = {L} exceeds the chain length of the description (model.L = {description.L})",
+                         arg="L")
+    if isinstance(realizations, bool) or not isinstance(realizations, int) or realizations < 1:
+        raise InputError(f"realizations must be a positive integer, got {realizations!r}", arg="realizations")
+
+
 #: Energy-density bins of :func:`eigenstate_study`: epsilon = (E - E_min) / (E_max - E_min) in [0, 1].
 ENERGY_BINS = (0.0, 0.2, 0.4, 0.6, 0.8, 1.0)
 
@@ -144,14 +149,8 @@ def eigenstate_study(description: RunDescription, L: int = 10, realizations: int
     from .conventions import default_probe
     from .exact import MAX_DENSE_L, eigenstate_otoc
 
-    if isinstance(L, bool) or not isinstance(L, int) or not 2 <= L <= MAX_DENSE_L:
-        raise InputError(f"L must be an integer in 2..{MAX_DENSE_L} for eigenstate-resolved OTOCs (dense "
-                         f"diagonalization of 2^L states), got {L!r}", arg="L")
-    if L > description.L:
-        raise InputError(f"L = {L} exceeds the chain length of the description (model.L = {description.L})",
-                         arg="L")
-    if isinstance(realizations, bool) or not isinstance(realizations, int) or realizations < 1:
-        raise InputError(f"realizations must be a positive integer, got {realizations!r}", arg="realizations")
+    _check_small(description, L, realizations, MAX_DENSE_L, "for eigenstate-resolved OTOCs (dense "
+                 "diagonalization of 2^L states)")
     probe = (probe or default_probe(description.probes)).upper()
     edges = np.asarray(bins, dtype=float)
     if edges.ndim != 1 or edges.size < 2 or np.any(np.diff(edges) <= 0) or edges[0] < 0 or edges[-1] > 1:
