@@ -321,8 +321,7 @@ def _cmd_run(args) -> int:
     if rep.computed:
         from .store import run_status
 
-        with __import__("contextlib").suppress(Exception):
-            _discarded_warning(run_status(args.out)["largest_discarded_weight"])
+        _discarded_warning(run_status(args.out)["largest_discarded_weight"])
     _say(f"next: fronts status {args.out}; fronts merge {args.out} -o merged.h5; "
          f"python -c \"import mpo_fronts as mf; ens = mf.load('{args.out}')\"")
     return 0
