@@ -321,7 +321,7 @@ def _cmd_run(args) -> int:
     if rep.computed:
         from .store import run_status
 
-        _discarded_warning(run_status(args.out)["largest_discarded_weight"])
+        _discarded_warning(run_status(args.out).largest_discarded_weight)
     _say(f"next: fronts status {args.out}; fronts merge {args.out} -o merged.h5; "
          f"python -c \"import mpo_fronts as mf; ens = mf.load('{args.out}')\"")
     return 0
@@ -345,13 +345,11 @@ def _status_one(directory, as_json: bool) -> int:
 
     st = run_status(directory)
     if as_json:
-        st = dict(st)
-        st["checkpointed"] = {str(k): v for k, v in st["checkpointed"].items()}
-        print(json.dumps(st, indent=1))
+        print(json.dumps(st.to_dict(), indent=1))
         return 0
-    d = st["description"]
+    d = st.description
     ev = d.get("evolution", d.get("engine"))  # [engine] before 0.2
-    n_done = len(st["done"])
+    n_done = len(st.done)
 
     def ks(items, limit=12):
         items = list(items)
@@ -365,27 +363,27 @@ def _status_one(directory, as_json: bool) -> int:
         site = d["operators"]["site"]
     m = d["model"]
     disorder = f", disorder W = {m['W']:g}" if isinstance(m.get("W"), (int, float)) else ""
-    _say(f"run directory: {st['path']}",
+    _say(f"run directory: {st.path}",
          f"  {m['kind']} L={m['L']}{disorder}; operator {d['operators']['w']} at site {site}"
          + (f" ({d['operators']['site']})" if str(d["operators"]["site"]) != str(site) else "")
          + f"; chi={ev['chi']}, dt={ev['dt']}, order {ev['order']}, "
          f"{len(d['times']['values'])} times up to t={d['times']['values'][-1]:g}",
-         f"  done:         {n_done} of {st['realizations']}"
-         + (f" (wall time {_fmt_s(st['wall_time'])} total, {_fmt_s(st['wall_time'] / n_done)} per realization)"
+         f"  done:         {n_done} of {st.n_realizations}"
+         + (f" (wall time {_fmt_s(st.wall_time)} total, {_fmt_s(st.wall_time / n_done)} per realization)"
             if n_done else ""),
-         f"  running:      {len(st['running'])}" + ("  " + ", ".join(
-             f"r{e['k']} t={e['t']:.3g}/{e['t_final']:g} ({e['host']} pid {e['pid']})" for e in st["running"][:8])
-             if st["running"] else ""),
-         f"  checkpointed: {len(st['checkpointed'])}" + ("  " + ", ".join(
-             f"r{k} t={t:.3g}" for k, t in sorted(st["checkpointed"].items())[:8]) if st["checkpointed"] else ""),
-         f"  stale claims: {len(st['stale'])}" + (f"  {ks(e['k'] for e in st['stale'])} (owner gone; a rerun "
-                                                   "takes them over)" if st["stale"] else ""),
-         f"  missing:      {len(st['missing'])}" + (f"  {ks(st['missing'])}" if st["missing"] else ""),
-         f"  largest discarded weight: {st['largest_discarded_weight']:.3g}; largest bond dimension: "
-         f"{st['largest_bond']}"
+         f"  running:      {len(st.running)}" + ("  " + ", ".join(
+             f"r{e['k']} t={e['t']:.3g}/{e['t_final']:g} ({e['host']} pid {e['pid']})" for e in st.running[:8])
+             if st.running else ""),
+         f"  checkpointed: {len(st.checkpointed)}" + ("  " + ", ".join(
+             f"r{k} t={t:.3g}" for k, t in sorted(st.checkpointed.items())[:8]) if st.checkpointed else ""),
+         f"  stale claims: {len(st.stale)}" + (f"  {ks(e['k'] for e in st.stale)} (owner gone; a rerun "
+                                              "takes them over)" if st.stale else ""),
+         f"  missing:      {len(st.missing)}" + (f"  {ks(st.missing)}" if st.missing else ""),
+         f"  largest discarded weight: {st.largest_discarded_weight:.3g}; largest bond dimension: "
+         f"{st.largest_bond}"
          if n_done else "  (no finished realization yet)")
     if n_done:
-        _discarded_warning(st["largest_discarded_weight"])
+        _discarded_warning(st.largest_discarded_weight)
     return 0
 
 

@@ -14,7 +14,7 @@ import threading
 import time
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any, Callable, ClassVar
 
 import numpy as np
 
@@ -22,7 +22,7 @@ from .atomic import _atomic_text, _json, _package_info, _tmp_name, atomic_h5
 from .config import RunDescription, parse_description
 from .errors import RunDirectoryError
 
-__all__ = ["RunDirectory", "Claim", "ClaimInfo", "run_status", "RUN_FILE", "RESULT_FORMAT", "MERGED_FORMAT",
+__all__ = ["RunDirectory", "Claim", "ClaimInfo", "RunStatus", "run_status", "RUN_FILE", "RESULT_FORMAT", "MERGED_FORMAT",
            "CHECKPOINT_FORMAT", "CONVERGENCE_FILE", "LETTER_AXIS", "DATASETS", "OPTIONAL"]
 
 RUN_FILE = "run.json"
@@ -474,13 +474,86 @@ def evolution_attr(f) -> dict:
     return json.loads(f.attrs["evolution"] if "evolution" in f.attrs else f.attrs["engine"])
 
 
-def run_status(path) -> dict:
+@dataclass(frozen=True)
+class RunStatus:
+    """What a run directory holds now (the result of :func:`run_status`).
+
+    Attributes
+    ----------
+    path : str
+        The run directory.
+    n_realizations : int
+        Realizations the description asks for (indices 0 .. n_realizations - 1).
+    done : list of int
+        Indices with a finished result file.
+    running : list of dict
+        Live claims: ``k``, ``host``, ``pid``, ``t`` (progress), ``t_final``, ``heartbeat_age_s``.
+    stale : list of dict
+        Claims whose owner is gone or silent (same keys); a rerun takes them over.
+    checkpointed : dict
+        Index -> time t reached by the checkpoint of an unfinished realization.
+    missing : list of int
+        Indices neither done nor held by a live claim.
+    wall_time : float
+        Wall time summed over the done realizations (s).
+    largest_discarded_weight : float
+        Largest cumulative discarded weight over the done realizations and times (fraction of the Frobenius
+        weight).
+    largest_bond : int
+        Largest bond dimension reached by a done realization.
+    description : dict
+        The resolved run description (``RunDescription.to_dict()``).
+
+    Read access by key (``st["done"]``) keeps the dict spelling of 0.1.0 working, including its names
+    ``realizations`` (= ``n_realizations``), ``max_discarded_weight`` and ``max_bond``; :meth:`to_dict` is the
+    JSON form (``fronts status --json``), with those names too.
+    """
+
+    path: str
+    n_realizations: int
+    done: list
+    running: list
+    stale: list
+    checkpointed: dict
+    missing: list
+    wall_time: float
+    largest_discarded_weight: float
+    largest_bond: int
+    description: dict
+
+    #: Names of 0.1.0 -> field.
+    ALIASES: ClassVar[dict[str, str]] = {"realizations": "n_realizations",
+                                         "max_discarded_weight": "largest_discarded_weight",
+                                         "max_bond": "largest_bond"}
+
+    def keys(self) -> list[str]:
+        """The field names, then the names of 0.1.0 (in the order of the 0.1.0 dict, then the new ones)."""
+        return ["path", "realizations", "done", "running", "stale", "checkpointed", "missing", "wall_time",
+                "largest_discarded_weight", "largest_bond", "max_discarded_weight", "max_bond", "description",
+                "n_realizations"]
+
+    def __getitem__(self, key: str):
+        if not isinstance(key, str) or key not in self.keys():
+            raise KeyError(key)
+        return getattr(self, self.ALIASES.get(key, key))
+
+    def __contains__(self, key) -> bool:
+        return key in self.keys()
+
+    def get(self, key: str, default=None):
+        return self[key] if key in self else default
+
+    def to_dict(self) -> dict[str, Any]:
+        """A JSON-able dict under every name of :meth:`keys` (the ``checkpointed`` keys as strings)."""
+        d = {k: self[k] for k in self.keys()}
+        d["checkpointed"] = {str(k): t for k, t in self.checkpointed.items()}
+        return d
+
+
+def run_status(path) -> RunStatus:
     """Summary of a run directory: done, running, stale, missing realizations, wall time, largest errors.
 
-    Returns a JSON-able dict with keys ``realizations`` (total), ``done``, ``running`` (list of dicts with k,
-    host, pid, t, t_final), ``stale`` (claims of dead owners), ``checkpointed`` ({k: t}), ``missing``,
-    ``wall_time`` (summed over done realizations, s), ``largest_discarded_weight``, ``largest_bond`` (also
-    under their names before 0.2, ``max_discarded_weight`` and ``max_bond``), ``description``.
+    Returns a :class:`RunStatus` (read by attribute, or by key as the dict of 0.1.0).
     """
     import h5py
 
@@ -510,8 +583,6 @@ def run_status(path) -> dict:
             max_b = max(max_b, int(np.max(f["max_bond"][()])))
     busy = {e["k"] for e in running}
     missing = [k for k in range(desc.realizations) if k not in done and k not in busy]
-    return {"path": str(rd.path), "realizations": desc.realizations, "done": done, "running": running,
-            "stale": stale, "checkpointed": ckpt, "missing": missing, "wall_time": wall,
-            "largest_discarded_weight": max_dw, "largest_bond": max_b,
-            "max_discarded_weight": max_dw, "max_bond": max_b,  # the names before 0.2
-            "description": desc.to_dict()}
+    return RunStatus(path=str(rd.path), n_realizations=desc.realizations, done=done, running=running, stale=stale,
+                     checkpointed=ckpt, missing=missing, wall_time=wall, largest_discarded_weight=max_dw,
+                     largest_bond=max_b, description=desc.to_dict())

@@ -16,6 +16,7 @@ from mpo_fronts.config import parse_description
 from mpo_fronts.ensemble import run_ensemble
 from mpo_fronts.errors import MissingDependencyError, RunDirectoryError
 from mpo_fronts.evolve import OperatorTEBD
+from mpo_fronts.rundir import RunStatus
 from mpo_fronts.store import Claim, ClaimInfo, RunDirectory, atomic_h5, load, merge, run_status
 
 RAW = {
@@ -203,12 +204,42 @@ def test_result_file_contents(small_run):
 def test_status_of_a_partial_run(small_run, tmp_path):
     st = run_status(small_run)
     assert st["done"] == [0, 1, 2] and st["missing"] == [] and st["max_bond"] <= 8
+    assert isinstance(st, RunStatus) and st.done == [0, 1, 2] and st.n_realizations == 3
     out = tmp_path / "partial"
     run_ensemble(desc(), out, realizations=[1], progress="none")
     st = run_status(out)
     assert st["done"] == [1] and st["missing"] == [0, 2]
     ens = load(out)
     assert ens.missing == [0, 2] and ens.otoc("Z").shape == (1, 2, 6)
+
+
+def test_run_status_is_typed_and_reads_as_the_old_dict(small_run):
+    """RunStatus: frozen fields, the 0.1.0 dict keys (and their old names) by index, the JSON form."""
+    import dataclasses
+
+    st = run_status(small_run)
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        st.done = []
+    with pytest.raises(KeyError):
+        st["no_such_key"]
+    # the keys of the 0.1.0 dict, in its order, with the same values
+    old_keys = ["path", "realizations", "done", "running", "stale", "checkpointed", "missing", "wall_time",
+                "largest_discarded_weight", "largest_bond", "max_discarded_weight", "max_bond", "description"]
+    assert list(st.keys())[:len(old_keys)] == old_keys
+    assert st["realizations"] == st.n_realizations == 3
+    assert st["max_discarded_weight"] == st["largest_discarded_weight"] == st.largest_discarded_weight
+    assert st["max_bond"] == st["largest_bond"] == st.largest_bond and 1 <= st.largest_bond <= 8
+    assert st.wall_time > 0 and st["wall_time"] == st.wall_time and st.get("nothing", 7) == 7
+    dw, bond = [], []
+    for k in range(3):
+        with h5py.File(small_run / "realizations" / f"r{k:05d}.h5") as f:
+            dw.append(float(np.max(f["discarded_weight"][()])))
+            bond.append(int(np.max(f["max_bond"][()])))
+    assert st.largest_discarded_weight == max(dw) and st.largest_bond == max(bond)
+    d = dict(st)  # mapping protocol: keys() and []
+    assert d["done"] == [0, 1, 2] and d["description"] == st.description
+    js = json.loads(json.dumps(st.to_dict()))
+    assert js["max_bond"] == st.largest_bond and js["n_realizations"] == 3 and js["checkpointed"] == {}
 
 
 def test_to_xarray(small_run):
