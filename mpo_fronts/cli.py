@@ -676,7 +676,7 @@ def _paragraph(message: str) -> str:
 _FLAGS = {"L": "--L", "realizations": "--realizations", "chis": "--chi", "probe": "--probe", "shard": "--shard",
           "dask": "--dask", "workers": "--workers", "overwrite": "--force", "tol": "--tol", "rel_tol": "--rel-tol",
           "dt": "--dt",
-          "threshold": "--threshold", "only": "--only"}
+          "threshold": "--threshold", "only": "--only", "out": "--out"}
 
 
 def main(argv: Sequence[str] | None = None) -> int:

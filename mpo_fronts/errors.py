@@ -46,7 +46,18 @@ class ConfigError(UserError, ValueError):
 
 
 class RunDirectoryError(UserError, FileExistsError):
-    """A run directory cannot be used as asked (another description, a foreign directory, ...)."""
+    """A run directory cannot be used as asked (another description, a foreign directory, ...).
+
+    ``arg`` names the argument to change when there is one (``"out"``, ``"overwrite"``), as for
+    :class:`InputError`. Pickles with ``arg``.
+    """
+
+    def __init__(self, message: str, arg: str | None = None):
+        super().__init__(message)
+        self.arg = arg
+
+    def __reduce__(self):
+        return (type(self), (str(self), self.arg))
 
 
 class MissingDependencyError(UserError, ImportError):

@@ -204,7 +204,7 @@ class Ensemble:
         path = Path(path)
         if path.exists() and not overwrite:
             raise RunDirectoryError(f"{path}: exists; choose another output file, or replace it with "
-                                    "overwrite=True (fronts merge --force); nothing was written")
+                                    "overwrite=True; nothing was written", arg="overwrite")
         if len(self) == 0:
             raise InputError("nothing to merge: the run holds no finished realizations yet")
         version, conventions = _package_info()
@@ -381,8 +381,8 @@ def merge(sources: Iterable, out, overwrite: bool = False) -> tuple[Path, Ensemb
         raise InputError("merge needs at least one run directory or file")
     out = Path(out)
     if out.exists() and not overwrite:
-        raise RunDirectoryError(f"{out}: exists; choose another output file, or replace it with overwrite=True "
-                                "(fronts merge --force); nothing was written")
+        raise RunDirectoryError(f"{out}: exists; choose another output file, or replace it with overwrite=True; "
+                                "nothing was written", arg="overwrite")
     ens = [load(s) for s in sources]
     descs = [parse_description(e.description) for e in ens]
     for src, e, d in zip(sources[1:], ens[1:], descs[1:]):

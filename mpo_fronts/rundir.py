@@ -185,12 +185,13 @@ class RunDirectory:
         """Raise :class:`RunDirectoryError` if ``path`` cannot hold a run of ``description``; writes nothing."""
         p = Path(path)
         if p.exists() and not p.is_dir():
-            raise RunDirectoryError(f"{p}: exists and is not a directory; choose another --out")
+            raise RunDirectoryError(f"{p}: exists and is not a directory; choose another output directory",
+                                    arg="out")
         if p.is_dir() and not (p / RUN_FILE).is_file():
             # a run being created right now holds only our lock file and the temporary run.json
             if any(not (child.name == ".lock" or child.name.startswith(f".{RUN_FILE}.")) for child in p.iterdir()):
                 raise RunDirectoryError(f"{p}: exists, is not empty and is not a run directory (no {RUN_FILE}); "
-                                        "choose a new or empty --out directory")
+                                        "choose a new or empty output directory", arg="out")
             return
         if p.is_dir():
             meta = RunDirectory._read_run_file(p)
@@ -205,8 +206,8 @@ class RunDirectory:
                 raise RunDirectoryError(f"{p} holds a run of a different description; nothing was changed. "
                                         f"Differences: {'; '.join(lines[:6])}"
                                         f"{' ...' if len(lines) > 6 else ''}. Use another output directory, "
-                                        f"or resume the stored run with its own description: fronts run "
-                                        f"{p / RUN_FILE} --out {p}")
+                                        f"or resume the stored run with its own description, {p / RUN_FILE} "
+                                        f"(on the command line: fronts run {p / RUN_FILE} --out {p})")
 
     @classmethod
     def create(cls, path, description: RunDescription) -> "RunDirectory":

@@ -186,6 +186,15 @@ def test_directory_errors_exit_2_and_change_nothing(tmp_path, capsys):
     (foreign / "keep.txt").write_text("x")
     assert main(["run", str(toml), "--out", str(foreign)]) == 2
     assert [p.name for p in foreign.iterdir()] == ["keep.txt"]
+    # the library speaks of the output directory (argument out); the CLI adds its option
+    err = " ".join(capsys.readouterr().err.split())
+    assert "new or empty output directory (command-line option --out)" in err
+    a_file = tmp_path / "a_file"
+    a_file.write_text("x")
+    assert main(["run", str(toml), "--out", str(a_file)]) == 2
+    err = " ".join(capsys.readouterr().err.split())
+    assert "not a directory; choose another output directory (command-line option --out)" in err
+    assert a_file.read_text() == "x"
 
 
 def test_console_script_error_has_no_traceback(tmp_path):

@@ -93,6 +93,11 @@ def test_errors_pickle():
     assert isinstance(e, ValueError) and e.key == "engine.chi" and "engine.chi" in str(e)
     e2 = pickle.loads(pickle.dumps(InputError("L must be >= 2")))
     assert str(e2) == "L must be >= 2"
+    from mpo_fronts.errors import RunDirectoryError
+
+    e3 = pickle.loads(pickle.dumps(RunDirectoryError("x.h5: exists", arg="overwrite")))
+    assert isinstance(e3, FileExistsError) and str(e3) == "x.h5: exists" and e3.arg == "overwrite"
+    assert RunDirectoryError("no arg").arg is None
 
 
 def test_chain_repr_is_one_short_line():

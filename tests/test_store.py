@@ -185,8 +185,13 @@ def test_load_directory_and_merged_file_agree(small_run, tmp_path):
     assert again.description == ens.description and again.engine == ens.engine
     with h5py.File(path) as f:
         assert f.attrs["conventions"] == mf.CONVENTIONS and f.attrs["version"] == mf.__version__
-    with pytest.raises(RunDirectoryError, match="exists"):
+    with pytest.raises(RunDirectoryError, match="exists") as info:
         merge([small_run], path)
+    # the library names its argument, not a command-line flag (the CLI adds --force from .arg)
+    assert info.value.arg == "overwrite" and "overwrite=True" in str(info.value) and "--" not in str(info.value)
+    with pytest.raises(RunDirectoryError, match="exists") as info:
+        again.write(path)
+    assert info.value.arg == "overwrite" and "--" not in str(info.value)
 
 
 def test_result_file_contents(small_run):
