@@ -130,8 +130,9 @@ class _SectorSpectrum:
     """Eigendecomposition of H block by block in the sectors of total S^z (chains with ``conserves_sz``).
 
     A local Pauli letter maps sector m to m (I, Z) or to m +- 1 (X, Y), so W(t) is assembled from blocks
-    V_a (Phi_ab * W_ab) V_b^dag between connected sectors only: for L = 12 about 20x fewer flops than the dense
-    route, and identical results to rounding.
+    V_a (Phi_ab * W_ab) V_b^dag between connected sectors only, and identical results to rounding. Flop count
+    (not a timing): the two products per block cost n_a n_b (n_a + n_b) for sector sizes n_a = binom(L, a),
+    against 2 (2^L)^3 for the dense route; at L = 12 that is 19x fewer for X, Y and 34x fewer for I, Z.
     """
 
     def __init__(self, chain: Chain):
@@ -267,8 +268,8 @@ def exact_otoc(chain: Chain, w: str = "Z", site=0, times: Sequence[float] = (1.0
     -----
     Cost: one dense diagonalisation of H (2^L x 2^L) and four real (two complex for complex H)
     2^L x 2^L matrix products per time; for chains that conserve total S^z (XXZ) both are done block by block
-    in the S^z sectors (about 20x cheaper at L = 12). Memory: a few dense 2^L x 2^L complex matrices
-    (L = 12: ~0.3 GB each).
+    in the S^z sectors (19-34x fewer flops at L = 12 by the count in ``_SectorSpectrum``). Memory: a few dense
+    2^L x 2^L complex matrices (L = 12: ~0.3 GB each).
 
     Examples
     --------

@@ -25,9 +25,9 @@ from numbers import Integral, Real
 import numpy as np
 
 from .conventions import PAULI, SPIN
+from .errors import InputError
 
 _I2, _X, _Y, _Z = PAULI
-from .errors import InputError
 
 __all__ = ["Chain", "xxz_chain", "mixed_field_ising_chain", "nn_chain", "draw_fields", "PAULI", "SPIN"]
 

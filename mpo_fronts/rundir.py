@@ -22,8 +22,8 @@ from .atomic import _atomic_text, _json, _package_info, _tmp_name, atomic_h5
 from .config import RunDescription, parse_description
 from .errors import RunDirectoryError
 
-__all__ = ["RunDirectory", "Claim", "ClaimInfo", "RunStatus", "run_status", "RUN_FILE", "RESULT_FORMAT", "MERGED_FORMAT",
-           "CHECKPOINT_FORMAT", "CONVERGENCE_FILE", "LETTER_AXIS", "DATASETS", "OPTIONAL"]
+__all__ = ["RunDirectory", "Claim", "ClaimInfo", "RunStatus", "run_status", "RUN_FILE", "RESULT_FORMAT",
+           "MERGED_FORMAT", "CHECKPOINT_FORMAT", "CONVERGENCE_FILE", "LETTER_AXIS", "DATASETS", "OPTIONAL"]
 
 RUN_FILE = "run.json"
 RESULT_FORMAT = "mpo_fronts.realization/1"

@@ -5,7 +5,7 @@ import pytest
 
 import mpo_fronts as mf
 from mpo_fronts.errors import InputError
-from mpo_fronts.models import PAULI, SPIN
+from mpo_fronts.conventions import PAULI, SPIN
 
 X, Y, Z = PAULI[1:]
 

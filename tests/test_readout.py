@@ -7,7 +7,7 @@ import pytest
 
 import mpo_fronts as mf
 from mpo_fronts.errors import InputError
-from mpo_fronts.models import PAULI
+from mpo_fronts.conventions import PAULI
 from mpo_fronts.readout import (ANTICOMMUTES, otoc_from_weights, pauli_weights, product_state_otoc, read_operator,
                                 right_weights)
 
