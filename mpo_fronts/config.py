@@ -18,7 +18,9 @@ Tables and keys (defaults in brackets)::
                   up, and/or configurations = named families, see CONFIGURATIONS; computed side by side)
                   | "random_product" (samples [1] random basis states per realization)
     [times]       values = [...] (strictly increasing, >= 0), or start, stop, num, spacing ["log"] | "linear"
-    [evolution]   chi [64], dt [0.05], order [2], cutoff [0.0], chunk [20], truncation ["svd"] (or "rsvd", "eigh")
+    [evolution]   chi [64], dt [0.05], order [2], cutoff [0.0], chunk [20], truncation ["svd"] (or "rsvd", "eigh"),
+                  symmetry ["auto"] (or "z2", "u1": the engine's symmetry blocks; "u1" for model.kind = "xxz"
+                  and operators.w = "Z" only)
                   (see mpo_fronts.settings.EvolutionSettings; the table's old name [engine] is still read)
     [ensemble]    realizations [1 without randomness, else required], seed [0]
     [run]         label [""], checkpoints [true], checkpoint_interval [300.0 s], claim_timeout [600.0 s]
@@ -204,6 +206,22 @@ def _parse_model(m: dict) -> dict:
         out["g"] = _real("model.g", m.get("g", 1.05))
         out["h"] = _real("model.h", m.get("h", 0.5))
     return out
+
+
+#: Model kinds whose Hamiltonian commutes with total S^z (``Chain.conserves_sz``): where symmetry = "u1" works.
+_SZ_CONSERVING = ("xxz",)
+
+
+def _check_symmetry(symmetry: str, kind: str, w: str, prefix: str) -> None:
+    """evolution.symmetry = "u1" needs an S^z-conserving model and W = Z (checked before any work starts)."""
+    if symmetry != "u1":
+        return
+    if kind not in _SZ_CONSERVING:
+        raise ConfigError(f"{prefix}.symmetry", f"'u1' needs a model that conserves total S^z (model.kind = "
+                                                f"'xxz'); model.kind = {kind!r} does not. Use 'z2' or 'auto'")
+    if w != "Z":
+        raise ConfigError(f"{prefix}.symmetry", f"'u1' evolves operators.w = 'Z' only (X and Y are not charge "
+                                                f"eigenstates); got operators.w = {w!r}. Use 'z2' or 'auto'")
 
 
 def _parse_operators(o: dict, L: int) -> dict:
@@ -394,6 +412,7 @@ def parse_description(raw: Mapping, source: str | None = None) -> "RunDescriptio
     times = _parse_times(_table(raw, "times"))
     evo_name = "engine" if "engine" in raw else "evolution"
     evolution = EvolutionSettings.from_table(_table(raw, evo_name), evo_name).to_dict()
+    _check_symmetry(evolution["symmetry"], model["kind"], operators["w"], evo_name)
     run = _parse_run(_table(raw, "run"))
     ens_raw = _table(raw, "ensemble")
     _check_keys("ensemble", ens_raw, SCHEMA["ensemble"])

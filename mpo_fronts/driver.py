@@ -3,7 +3,9 @@
 Both the Python API (:func:`mpo_fronts.evolve_otoc`) and the production runner (one disorder realization in
 :mod:`mpo_fronts.ensemble`) call :func:`evolve`. It
 
-* builds the engine from one :class:`~mpo_fronts.settings.EvolutionSettings`;
+* builds the engine from one :class:`~mpo_fronts.settings.EvolutionSettings`: the Pauli-basis
+  :class:`~mpo_fronts.evolve.OperatorTEBD` (Z2 blocks) or the charge-block :class:`~mpo_fronts.u1.ChargeTEBD`
+  (U(1) blocks), as ``settings.symmetry`` says (:meth:`~mpo_fronts.settings.EvolutionSettings.engine_symmetry`);
 * restores a checkpoint (``resume``) when given one, and measures an output whose last block was already done;
 * at every output time calls each *measurement* ``m(engine) -> {name: array}`` and stores the arrays with a
   leading time axis (adding a measurement is one function, not an edit of this loop);
@@ -14,7 +16,9 @@ Both the Python API (:func:`mpo_fronts.evolve_otoc`) and the production runner (
 Measurements provided here: :func:`operator_profiles` (single-site Pauli weights and the right-weight profile
 from one environment sweep), :func:`truncation_record` (cumulative discarded weight, per bond too, and the
 largest bond dimension), :func:`entanglement` (operator entanglement entropy per bond) and
-:class:`ProductStates` (product-state OTOCs for a list of basis states).
+:class:`ProductStates` (product-state OTOCs for a list of basis states). Each works with both engines. A
+measurement of your own receives the engine: ``engine.arrays`` are real Pauli-basis tensors for OperatorTEBD
+but complex charge-basis tensors for ChargeTEBD; :func:`pauli_arrays` gives the real Pauli-basis MPS of either.
 """
 
 from __future__ import annotations
@@ -28,32 +32,44 @@ import numpy as np
 
 from .conventions import PROBES
 from .errors import LARGE_DISCARDED_WEIGHT, InputError, TruncationWarning
-from .evolve import OperatorTEBD, bond_entropies, check_site, check_w
+from .evolve import BrickworkEngine, OperatorTEBD, bond_entropies, check_site, check_w
 from .readout import OtocResult, check_bits, product_state_otoc, read_operator
 from .schedules import check_times, step_plan
 from .settings import EvolutionSettings
 from .truncation import SVD_FLOOR
+from .u1 import ChargeTEBD
 
 __all__ = ["evolve", "evolve_otoc", "truncation_warnings", "Evolution", "operator_profiles", "truncation_record", "entanglement", "ProductStates",
-           "DEFAULT_MEASUREMENTS", "Observer", "OnBlock"]
+           "DEFAULT_MEASUREMENTS", "Observer", "OnBlock", "build_engine", "pauli_arrays"]
 
-Measurement = Callable[[OperatorTEBD], Mapping[str, Any]]
+Measurement = Callable[[BrickworkEngine], Mapping[str, Any]]
 
 
 # ------------------------------------------------------------------------------------------- measurements
-def operator_profiles(e: OperatorTEBD) -> dict[str, np.ndarray]:
+def pauli_arrays(e: BrickworkEngine) -> list[np.ndarray]:
+    """The operator of either engine as a real MPS over Pauli letters I, X, Y, Z, mixed canonical around
+    ``e.center`` (the layout every function of :mod:`mpo_fronts.readout` takes)."""
+    return e.real_pauli_arrays() if isinstance(e, ChargeTEBD) else e.arrays
+
+
+def operator_profiles(e: BrickworkEngine) -> dict[str, np.ndarray]:
     """``weights`` (L, 4): single-site Pauli weights, rows summing to 1; ``right_weight`` (L,): front profile."""
+    if isinstance(e, ChargeTEBD):  # read from the charge basis directly (mpo_fronts.u1.charge_profiles)
+        return e.profiles()
     return read_operator(e.arrays, e.center)
 
 
-def truncation_record(e: OperatorTEBD) -> dict[str, Any]:
+def truncation_record(e: BrickworkEngine) -> dict[str, Any]:
     """``discarded_weight`` (cumulative norm loss), ``bond_discarded`` (L-1,) (the same per bond), ``max_bond``."""
     return {"discarded_weight": e.discarded_weight, "bond_discarded": e.ledger.by_bond.copy(),
             "max_bond": e.max_bond}
 
 
-def entanglement(e: OperatorTEBD) -> dict[str, np.ndarray]:
-    """``bond_entropy`` (L-1,): operator entanglement entropy of W(t) at every bond (natural log)."""
+def entanglement(e: BrickworkEngine) -> dict[str, np.ndarray]:
+    """``bond_entropy`` (L-1,): operator entanglement entropy of W(t) at every bond (natural log).
+
+    The Schmidt values of a bond do not depend on the local basis (the charge basis is a unitary change of the
+    Pauli one), so ChargeTEBD's complex tensors go in as they are."""
     return {"bond_entropy": bond_entropies(e.arrays, e.center)}
 
 
@@ -67,8 +83,9 @@ class ProductStates:
     bits: tuple[str, ...]
     probes: tuple[str, ...] = PROBES
 
-    def __call__(self, e: OperatorTEBD) -> dict[str, np.ndarray]:
-        return {f"state_otoc_{v}": np.stack([product_state_otoc(e.arrays, b, v) for b in self.bits])
+    def __call__(self, e: BrickworkEngine) -> dict[str, np.ndarray]:
+        arrays = pauli_arrays(e)
+        return {f"state_otoc_{v}": np.stack([product_state_otoc(arrays, b, v) for b in self.bits])
                 for v in self.probes}
 
 
@@ -80,7 +97,7 @@ DEFAULT_MEASUREMENTS: tuple[Measurement, ...] = (operator_profiles, truncation_r
 class Observer:
     """Called by :func:`evolve` at fixed moments; override what you need (all do nothing here)."""
 
-    def after_block(self, engine: OperatorTEBD, evolution: "Evolution") -> None:
+    def after_block(self, engine: BrickworkEngine, evolution: "Evolution") -> None:
         """After every block of Trotter steps: the operator is a physical state at ``engine.t``."""
 
     def at_end(self, evolution: "Evolution") -> None:
@@ -90,7 +107,7 @@ class Observer:
 class OnBlock(Observer):
     """An observer from a function ``fn(engine, evolution)`` called after every block (progress, heartbeat)."""
 
-    def __init__(self, fn: Callable[[OperatorTEBD, "Evolution"], None]):
+    def __init__(self, fn: Callable[[BrickworkEngine, "Evolution"], None]):
         self.fn = fn
 
     def after_block(self, engine, evolution):
@@ -112,8 +129,12 @@ class Evolution:
         Output times measured so far.
     settings : EvolutionSettings
     engine : dict
-        How the operator was computed: ``method``, the settings (``settings.to_dict()``), ``max_step`` (largest
-        Trotter step used), ``svd_floor``, ``graded``, ``splits`` (gates per truncation route), ``blas_threads``.
+        How the operator was computed: ``method``, the settings as requested (``settings.to_dict()``, so
+        ``symmetry`` may read ``"auto"`` and ``dt`` ``"auto"``), ``dt_used``, ``symmetry_used`` (``"z2"`` or
+        ``"u1"``: the symmetry blocks the engine used), ``engine`` (``"OperatorTEBD"`` or ``"ChargeTEBD"``),
+        ``max_step`` (largest Trotter step used), ``svd_floor``, ``graded`` (block-diagonal gates: Z2 grading
+        for OperatorTEBD as it chose, always True for ChargeTEBD, whose charge blocks refine it), ``splits``
+        (gates per truncation route), ``blas_threads``.
     wall_time : float
         Seconds, summed over resumed sessions.
     restarts : int
@@ -163,6 +184,44 @@ def _restore_outputs(evo: Evolution, outputs: Mapping[str, Any], n_done: int) ->
         buf[:n_done] = a[:n_done]
 
 
+# ------------------------------------------------------------------------------------------- the engine
+def build_engine(chain, w: str, site, settings: EvolutionSettings, *, symmetry: str | None = None,
+                 graded: bool | None = None) -> BrickworkEngine:
+    """The engine for ``settings`` (dt a number): OperatorTEBD for symmetry ``"z2"``, ChargeTEBD for ``"u1"``.
+
+    ``symmetry`` is the resolved choice (default: ``settings.engine_symmetry(chain, w)``); ``graded`` is
+    OperatorTEBD's option and is refused with ``"u1"``.
+    """
+    sym = settings.engine_symmetry(chain, w) if symmetry is None else symmetry
+    if sym == "u1":
+        if graded is not None:
+            raise InputError("graded is an option of the Z2 engine (OperatorTEBD); with symmetry = 'u1' leave it "
+                             "None, or use symmetry = 'z2'", arg="graded")
+        return ChargeTEBD(chain, w=w, site=site, settings=settings)
+    return OperatorTEBD(chain, w=w, site=site, settings=settings, graded=graded)
+
+
+def _resolve_symmetry(requested: EvolutionSettings, chain, w: str, resume, graded) -> str:
+    """The symmetry of this evolution: the settings' choice; with ``"auto"``, the engine that wrote a
+    checkpoint being resumed (so that a resumed run repeats the uninterrupted one), and ``"z2"`` when
+    ``graded`` (an OperatorTEBD option) is given."""
+    sym = requested.engine_symmetry(chain, w)
+    written = None
+    if resume is not None:
+        state = resume.get("state") if isinstance(resume, Mapping) else None
+        if isinstance(state, Mapping):
+            written = "u1" if state.get("engine") == "u1" or "charges" in state else "z2"
+    if requested.symmetry == "auto":
+        if written is not None:
+            return written
+        if graded is not None:
+            return "z2"
+    elif written is not None and written != sym:
+        raise InputError(f"resume: the checkpoint was written by the {written!r} engine but symmetry = "
+                         f"{requested.symmetry!r}; resume it with symmetry = {written!r} (or 'auto')", arg="resume")
+    return sym
+
+
 # ------------------------------------------------------------------------------------------- the loop
 def evolve(chain, w: str, site, times: Sequence[float], settings: EvolutionSettings, *,
            measurements: Sequence[Measurement] = DEFAULT_MEASUREMENTS, observers: Sequence[Observer] = (),
@@ -192,7 +251,9 @@ def evolve(chain, w: str, site, times: Sequence[float], settings: EvolutionSetti
         BLAS threads during the evolution (default 1: the gate matrices are small, and several threads on a
         shared machine slow them down); None leaves the BLAS setting alone.
     graded : bool, optional
-        Z2-graded blocks (default: the engine's choice, see :class:`~mpo_fronts.evolve.OperatorTEBD`).
+        Z2-graded blocks of OperatorTEBD (default: the engine's choice, see
+        :class:`~mpo_fronts.evolve.OperatorTEBD`); giving it with ``settings.symmetry = "auto"`` selects the Z2
+        engine, with ``"u1"`` it is an error.
 
     Returns
     -------
@@ -208,6 +269,7 @@ def evolve(chain, w: str, site, times: Sequence[float], settings: EvolutionSetti
     t_start = time.perf_counter()
     ts = check_times(times)
     requested, auto_info = settings, None
+    symmetry = _resolve_symmetry(requested, chain, check_w(w), resume, graded)  # before dt = "auto" is resolved
     if settings.auto:  # the step from the Trotter tolerance, measured on a window around W
         from .stepsize import auto_dt
 
@@ -216,7 +278,7 @@ def evolve(chain, w: str, site, times: Sequence[float], settings: EvolutionSetti
                                     float(ts[-1]) if ts[-1] > 0 else 1.0, settings.order, settings.splitting,
                                     settings.trotter_tol)
         settings = settings.replace(dt=dt)
-    eng = OperatorTEBD(chain, w=w, site=site, settings=settings, graded=graded)
+    eng = build_engine(chain, w, site, settings, symmetry=symmetry, graded=graded)
     evo = Evolution(times=ts, settings=settings)
 
     def measure(k: int) -> None:
@@ -248,8 +310,10 @@ def evolve(chain, w: str, site, times: Sequence[float], settings: EvolutionSetti
 
         for k, _ in eng.run(ts, hook=hook):
             measure(k)
-    evo.engine = {"method": "mpo_tebd", **requested.to_dict(), "dt_used": settings.dt, "max_step": eng.max_step,
-                  "svd_floor": SVD_FLOOR, "graded": eng.graded, "splits": dict(eng.splits), "blas_threads": threads}
+    evo.engine = {"method": "mpo_tebd", **requested.to_dict(), "dt_used": settings.dt, "symmetry_used": symmetry,
+                  "engine": type(eng).__name__, "max_step": eng.max_step, "svd_floor": SVD_FLOOR,
+                  "graded": True if symmetry == "u1" else bool(eng.graded), "splits": dict(eng.splits),
+                  "blas_threads": threads}
     if auto_info is not None:
         evo.engine["trotter_estimate"] = {k: auto_info[k] for k in ("A", "window", "t_pilot", "ratio",
                                                                     "predicted_error", "safety", "tol")}
@@ -289,7 +353,7 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
                 cutoff: float = 0.0, state: str | None = None, chunk: int | None = None,
                 progress: Callable[[float], None] | None = None, truncation: str = "svd",
                 threads: int | None = 1, settings: EvolutionSettings | None = None, splitting: str | None = None,
-                trotter_tol: float = 1e-3) -> OtocResult:
+                trotter_tol: float = 1e-3, symmetry: str = "auto") -> OtocResult:
     """OTOCs C(r, t) of W at ``site`` with every probe site r, by Heisenberg-picture MPO TEBD.
 
     Parameters
@@ -302,11 +366,14 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
         Site of W.
     times : sequence of float
         Strictly increasing output times (>= 0, units 1/J); any spacing.
-    chi, dt, order, cutoff, chunk, truncation, splitting, trotter_tol
+    chi, dt, order, cutoff, chunk, truncation, splitting, trotter_tol, symmetry
         Evolution settings (see :class:`mpo_fronts.settings.EvolutionSettings`); or give ``settings``.
         ``dt="auto"`` chooses the largest step whose estimated Trotter error of C stays below ``trotter_tol``
         (with order 4, Blanes-Moan splitting unless ``order``/``splitting`` say otherwise); the step used is
-        ``res.meta["dt_used"]`` and the estimate ``res.meta["trotter_estimate"]``.
+        ``res.meta["dt_used"]`` and the estimate ``res.meta["trotter_estimate"]``. With ``dt="auto"`` the
+        default ``symmetry="auto"`` also evolves with U(1) charge blocks (ChargeTEBD) when the chain conserves
+        total S^z and W = Z; with a numeric dt it keeps the Z2 engine unless ``symmetry="u1"``. The engine used
+        is ``res.meta["symmetry_used"]``.
     state : str, optional
         None for infinite temperature, or a basis-state bitstring of length L ('0' = spin up) for the
         product-state OTOC C_s(r, t) = 1 - Re <s|W(t) V_r W(t) V_r|s>.
@@ -316,7 +383,8 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
         BLAS threads during the evolution (threadpoolctl; default 1: the gate matrices are small, and several
         threads on a shared machine slow them down). None leaves the BLAS setting as it is.
     settings : EvolutionSettings, optional
-        All evolution settings at once (then chi, dt, order, cutoff, chunk, truncation are not used).
+        All evolution settings at once (then chi, dt, order, cutoff, chunk, truncation, splitting,
+        trotter_tol, symmetry are not used).
 
     Returns
     -------
@@ -335,7 +403,7 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
     if settings is None:
         settings = EvolutionSettings(chi=chi, dt=dt, order=order, cutoff=cutoff,
                                      **({"chunk": chunk} if chunk is not None else {}), truncation=truncation,
-                                     splitting=splitting, trotter_tol=trotter_tol)
+                                     splitting=splitting, trotter_tol=trotter_tol, symmetry=symmetry)
     if state is not None:
         check_bits(state, chain.L)
     ms = list(DEFAULT_MEASUREMENTS) + ([ProductStates((state,))] if state is not None else [])

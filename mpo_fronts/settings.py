@@ -22,7 +22,7 @@ from .errors import ConfigError, InputError
 from .schedules import DEFAULT_CHUNK, ORDERS, SPLITTINGS, check_splitting
 from .truncation import route, route_names
 
-__all__ = ["EvolutionSettings", "SETTINGS_KEYS", "NEW_DEFAULTS"]
+__all__ = ["EvolutionSettings", "SETTINGS_KEYS", "NEW_DEFAULTS", "SYMMETRIES"]
 
 _WHAT = {
     "chi": "a positive integer (maximum bond dimension)",
@@ -32,7 +32,13 @@ _WHAT = {
     "trotter_tol": "a number in (0, 1) (Trotter error of C that dt = \"auto\" aims below)",
     "cutoff": "a number in [0, 1) (discarded weight per truncation)",
     "chunk": "a positive integer (Trotter steps per block)",
+    "symmetry": "\"auto\", \"z2\" or \"u1\" (symmetry blocks of the engine)",
 }
+
+#: Values of ``symmetry``: ``"z2"`` the Pauli-basis engine (:class:`mpo_fronts.evolve.OperatorTEBD`, Z2-graded
+#: where it grades today), ``"u1"`` the charge-block engine (:class:`mpo_fronts.u1.ChargeTEBD`), ``"auto"``
+#: the choice of :meth:`EvolutionSettings.engine_symmetry`.
+SYMMETRIES = ("auto", "z2", "u1")
 
 
 @dataclass(frozen=True)
@@ -65,6 +71,19 @@ class EvolutionSettings:
     truncation : str
         A registered truncation route (:func:`mpo_fronts.truncation.route_names`): 'svd' (default), 'rsvd',
         'eigh'.
+    symmetry : {'auto', 'z2', 'u1'}
+        The symmetry blocks of the engine. ``"z2"``: the Pauli-basis engine
+        :class:`~mpo_fronts.evolve.OperatorTEBD` (real tensors; Z2-graded blocks when the chain conserves total
+        S^z and chi >= 32, as before this setting existed). ``"u1"``: :class:`~mpo_fronts.u1.ChargeTEBD`, blocks
+        of the U(1) charge (total S^z) in the basis I, Z, S+, S-; only for a chain that conserves total S^z
+        (the XXZ chain), W = Z and truncation ``"svd"``; anything else raises an InputError naming
+        ``symmetry``. ``"auto"`` (default): ``"u1"`` when ``dt = "auto"`` and the run allows it (S^z-conserving
+        chain, W = Z, truncation ``"svd"``, chi >= 2), ``"z2"`` otherwise, and always ``"z2"`` with a
+        numeric dt, so that every run that gives dt as a number computes exactly what it computed before the
+        setting existed (same engine, same results, same run fingerprint). The two engines agree to rounding
+        where neither truncates; with truncation they differ by an amount of the order of the truncation
+        error (see :class:`~mpo_fronts.u1.ChargeTEBD`). The engine used is recorded as ``symmetry_used`` (and
+        ``engine``) in the outputs; :meth:`engine_symmetry` resolves the choice.
 
     Examples
     --------
@@ -81,6 +100,7 @@ class EvolutionSettings:
     truncation: str = "svd"
     splitting: str | None = None
     trotter_tol: float = 1e-3
+    symmetry: str = "auto"
 
     def __post_init__(self):
         def setv(name, value):
@@ -114,6 +134,16 @@ class EvolutionSettings:
         setv("cutoff", float(c))
         setv("chunk", _positive_int("chunk", self.chunk))
         route(self.truncation)  # raises an InputError naming 'truncation' and the registered routes
+        if not isinstance(self.symmetry, str) or self.symmetry.lower() not in SYMMETRIES:
+            raise InputError(f"symmetry must be {_WHAT['symmetry']}, got {self.symmetry!r}", arg="symmetry")
+        setv("symmetry", self.symmetry.lower())
+        if self.symmetry == "u1":
+            if self.truncation != "svd":  # mpo_fronts.u1.COMPLEX_ROUTES (u1 comes after this module)
+                raise InputError(f"symmetry = 'u1' splits its blocks with truncation = 'svd' only, got truncation "
+                                 f"= {self.truncation!r}; use truncation = 'svd' or symmetry = 'z2'", arg="symmetry")
+            if self.chi < 2:
+                raise InputError(f"symmetry = 'u1' needs chi >= 2 (singular values of charges v and -v are kept in "
+                                 f"pairs), got chi = {self.chi}; raise chi or use symmetry = 'z2'", arg="symmetry")
 
     # ---------------------------------------------------------------- construction
     @classmethod
@@ -130,6 +160,8 @@ class EvolutionSettings:
         for key in ("chi", "chunk"):  # TOML integers only: 16.0 or "16" are typing mistakes worth naming
             if key in table and (isinstance(table[key], bool) or not isinstance(table[key], Integral)):
                 raise ConfigError(f"{prefix}.{key}", f"expected {_WHAT[key]}, got {table[key]!r}")
+        if "symmetry" in table and not isinstance(table["symmetry"], str):
+            raise ConfigError(f"{prefix}.symmetry", f"expected {_WHAT['symmetry']}, got {table['symmetry']!r}")
         for key in ("dt", "cutoff", "trotter_tol"):
             if key == "dt" and table.get(key) == "auto":
                 continue
@@ -144,6 +176,8 @@ class EvolutionSettings:
             if key == "truncation":
                 routes = ", ".join(f'"{t}"' for t in route_names())
                 msg = f"expected one of {routes} (how gates are truncated), got {table.get(key)!r}"
+            if key == "symmetry":
+                msg = str(exc) if str(table.get(key)).lower() in SYMMETRIES else msg
             raise ConfigError(f"{prefix}.{key}" if key else prefix, msg) from None
 
     def replace(self, **changes) -> "EvolutionSettings":
@@ -154,6 +188,29 @@ class EvolutionSettings:
         """The settings as plain numbers and strings (what result files and run descriptions store)."""
         return dataclasses.asdict(self)
 
+    def engine_symmetry(self, chain, w: str) -> str:
+        """The engine's symmetry blocks for this chain and operator: ``"z2"`` or ``"u1"`` (see ``symmetry``).
+
+        Raises an InputError naming ``symmetry`` when ``"u1"`` was asked for a chain that does not conserve total
+        S^z or for W other than Z.
+        """
+        w = w.upper() if isinstance(w, str) else w
+        conserving = bool(getattr(chain, "conserves_sz", False))
+        if self.symmetry == "u1":
+            if not conserving:
+                raise InputError(f"symmetry = 'u1' needs a chain that conserves total S^z (the XXZ chain); this "
+                                 f"{getattr(chain, 'kind', type(chain).__name__)!r} chain does not. Use symmetry "
+                                 f"= 'z2' (or 'auto')", arg="symmetry")
+            if w != "Z":
+                raise InputError(f"symmetry = 'u1' evolves W = 'Z' only (a charge eigenstate; X and Y mix charges "
+                                 f"+1 and -1), got w = {w!r}. Use symmetry = 'z2' (or 'auto') for W = X or Y",
+                                 arg="symmetry")
+            return "u1"
+        if self.symmetry == "auto" and self.auto and conserving and w == "Z" and self.truncation == "svd" \
+                and self.chi >= 2:
+            return "u1"
+        return "z2"
+
     @property
     def auto(self) -> bool:
         """True when the step is chosen from ``trotter_tol`` (``dt = "auto"``)."""
@@ -162,7 +219,7 @@ class EvolutionSettings:
 
 #: Keys added after version 0.1.0 and their defaults: left out of run-description fingerprints while they hold
 #: the default, so that run directories written by 0.1.0 still resume.
-NEW_DEFAULTS = {"splitting": "standard", "trotter_tol": 1e-3}
+NEW_DEFAULTS = {"splitting": "standard", "trotter_tol": 1e-3, "symmetry": "auto"}
 
 
 #: The keys of the ``[evolution]`` table, in the order of :class:`EvolutionSettings`.

@@ -55,7 +55,7 @@ def test_defaults_are_resolved():
     assert d["state"] == {"kind": "infinite_temperature"}
     assert d["evolution"] == {"chi": 64, "dt": 0.05, "order": 2, "cutoff": 0.0, "chunk": 20,
                               "truncation": "svd", "splitting": "standard",
-                              "trotter_tol": 1e-3}  # the table [engine] is now [evolution]
+                              "trotter_tol": 1e-3, "symmetry": "auto"}  # the table [engine] is now [evolution]
     assert d["ensemble"] == {"realizations": 1, "seed": 0}
     assert d["run"]["checkpoints"] is True and d["run"]["checkpoint_interval"] > 0
     ising = parse_description({"model": {"kind": "mixed_field_ising", "L": 6}, "times": {"values": [1.0]}})
@@ -182,7 +182,7 @@ _NON_DEFAULT = {
     "state": {"kind": "random_product", "bits": "01010101", "samples": 2, "configurations": ["neel"]},
     "times": {"values": [0.25, 0.5], "start": 0.2, "stop": 3.0, "num": 5, "spacing": "linear"},
     "evolution": {"chi": 7, "dt": 0.02, "order": 4, "cutoff": 1e-9, "chunk": 3, "truncation": "rsvd",
-                  "splitting": "omelyan", "trotter_tol": 1e-4},
+                  "splitting": "omelyan", "trotter_tol": 1e-4, "symmetry": "z2"},
     "ensemble": {"realizations": 3, "seed": 11},
     "run": {"label": "x", "checkpoints": False, "checkpoint_interval": 5.0, "claim_timeout": 60.0},
 }

@@ -88,3 +88,18 @@ def test_a_run_that_loses_most_of_its_weight_warns_and_one_that_does_not_stays_q
         warnings.simplefilter("error", TruncationWarning)
         fine = mf.evolve_otoc(chain, "Z", 8, [0.5, 1.0], chi=64, dt=0.1)
     assert fine.discarded_weight[-1] < 1e-6 and fine.meta["warnings"] == []
+
+
+def test_numeric_dt_keeps_the_z2_engine_bit_for_bit():
+    # symmetry = "auto" (the default) with a number for dt builds the engine of before the setting existed:
+    # the same arrays as OperatorTEBD run directly, and as symmetry = "z2"
+    from mpo_fronts.readout import read_operator
+
+    chain = mf.xxz_chain(10, W=2.0, seed=6)
+    times = [0.5, 1.5]
+    res = mf.evolve_otoc(chain, "Z", 4, times, chi=32, dt=0.1)
+    assert res.meta["symmetry"] == "auto" and res.meta["symmetry_used"] == "z2" and res.meta["graded"] is True
+    eng = OperatorTEBD(chain, "Z", 4, chi=32, dt=0.1)
+    direct = [read_operator(e.arrays, e.center)["weights"] for _, e in eng.run(times)]
+    assert np.array_equal(res.weights, np.array(direct))
+    assert np.array_equal(res.weights, mf.evolve_otoc(chain, "Z", 4, times, chi=32, dt=0.1, symmetry="z2").weights)

@@ -210,3 +210,189 @@ def test_pair_selection_is_the_best_within_chi(seed):
                    if sum(c * m for c, m in zip(cs, mult)) <= chi)
         kept = sum(m * np.sum(s[:c] ** 2) for s, m, c in zip(svals, mult, counts))
         assert abs(kept - best) < 1e-12 and abs(disc - (total - kept)) < 1e-12
+
+
+# ---------------------------------------------------------------------------------------- through the driver
+def test_driver_with_u1_equals_z2_without_truncation():
+    # the whole driver path (mf.evolve_otoc): every measurement it records (OTOCs of every probe, weights,
+    # right-weight profile, truncation record, bond entropies, product-state OTOCs) from ChargeTEBD equals the
+    # Z2 engine's where neither truncates (chi = 4^3, the largest operator Schmidt rank at L = 7)
+    chain = mf.xxz_chain(7, delta=0.8, W=1.5, seed=3)
+    times = [0.5, 1.0, 2.5]
+    kw = dict(w="Z", site=3, times=times, chi=64, dt=0.1, state="0110100")
+    z2 = mf.evolve_otoc(chain, **kw)
+    u1 = mf.evolve_otoc(chain, **kw, symmetry="u1")
+    assert z2.meta["symmetry_used"] == "z2" and z2.meta["engine"] == "OperatorTEBD"
+    assert u1.meta["symmetry_used"] == "u1" and u1.meta["engine"] == "ChargeTEBD" and u1.meta["symmetry"] == "u1"
+    for v in PROBES:
+        assert np.abs(u1.otoc(v) - z2.otoc(v)).max() < 1e-10
+        assert np.abs(u1.state_otoc[v] - z2.state_otoc[v]).max() < 1e-10
+    assert np.abs(u1.weights - z2.weights).max() < 1e-10
+    assert np.abs(u1.right_weight - z2.right_weight).max() < 1e-10
+    assert np.abs(u1.bond_entropy - z2.bond_entropy).max() < 1e-8
+    assert u1.bond_discarded.shape == z2.bond_discarded.shape == (3, 6)
+    assert np.all(u1.bond_discarded < 1e-20) and np.array_equal(u1.max_bond, z2.max_bond)
+    assert z2.otoc("X")[-1].max() > 0.3  # the front has spread
+    # the infinite-temperature readout too, on the same run
+    inf = mf.evolve_otoc(chain, "Z", 3, times, chi=64, dt=0.1, symmetry="u1")
+    z2i = mf.evolve_otoc(chain, "Z", 3, times, chi=64, dt=0.1)
+    assert np.abs(inf.otoc("X") - z2i.otoc("X")).max() < 1e-10
+
+
+def _fake_auto_dt(chain, w, site, t_final, order, splitting, tol):
+    """Stands in for mpo_fronts.stepsize.auto_dt (tested in test_stepsize.py), which takes tens of seconds."""
+    return 0.1, {"A": 0.0, "window": 6, "t_pilot": 1.0, "ratio": 16.0, "predicted_error": 0.0, "safety": 0.5,
+                 "tol": tol}
+
+
+def test_auto_symmetry_picks_u1_only_with_dt_auto_for_z_on_conserving_chains(monkeypatch):
+    from mpo_fronts import stepsize
+    from mpo_fronts.settings import EvolutionSettings
+
+    xxz, ising = mf.xxz_chain(6, W=1.0, seed=1), mf.mixed_field_ising_chain(6)
+    auto = EvolutionSettings(dt="auto")
+    assert auto.symmetry == "auto" and auto.engine_symmetry(xxz, "Z") == "u1"
+    assert auto.engine_symmetry(xxz, "X") == "z2" and auto.engine_symmetry(ising, "Z") == "z2"
+    assert auto.replace(truncation="rsvd").engine_symmetry(xxz, "Z") == "z2"
+    assert EvolutionSettings(dt=0.1).engine_symmetry(xxz, "Z") == "z2"  # a numeric dt: today's engine
+    assert EvolutionSettings(dt=0.1, symmetry="u1").engine_symmetry(xxz, "Z") == "u1"
+    monkeypatch.setattr(stepsize, "auto_dt", _fake_auto_dt)
+    res = mf.evolve_otoc(xxz, "Z", 2, [0.5], chi=16, dt="auto")
+    assert res.meta["symmetry_used"] == "u1" and res.meta["symmetry"] == "auto" and res.meta["order"] == 4
+    assert res.meta["engine"] == "ChargeTEBD" and res.meta["dt_used"] == 0.1
+    assert mf.evolve_otoc(xxz, "X", 2, [0.5], chi=16, dt="auto").meta["symmetry_used"] == "z2"
+    assert mf.evolve_otoc(ising, "Z", 2, [0.5], chi=16, dt="auto").meta["symmetry_used"] == "z2"
+    assert mf.evolve_otoc(xxz, "Z", 2, [0.5], chi=16, dt=0.1).meta["symmetry_used"] == "z2"
+
+
+@pytest.mark.parametrize("chain, w, kw", [
+    (mf.mixed_field_ising_chain(6), "Z", {}),
+    (mf.xxz_chain(6, W=1.0, seed=1), "X", {}),
+    (mf.xxz_chain(6, W=1.0, seed=1), "Y", {"dt": "auto"}),
+])
+def test_u1_symmetry_is_refused_where_it_cannot_work(chain, w, kw):
+    with pytest.raises(InputError, match="symmetry = 'u1'") as info:
+        mf.evolve_otoc(chain, w, 2, [0.5], chi=16, symmetry="u1", **kw)
+    assert info.value.arg == "symmetry" and "'z2'" in str(info.value)
+
+
+def test_u1_settings_errors_name_the_key():
+    from mpo_fronts.settings import EvolutionSettings
+
+    for kw, word in (({"symmetry": "u2"}, "\"auto\", \"z2\" or \"u1\""), ({"symmetry": 1}, "symmetry must"),
+                     ({"symmetry": "u1", "truncation": "rsvd"}, "truncation = 'svd'"),
+                     ({"symmetry": "u1", "chi": 1}, "chi >= 2")):
+        with pytest.raises(InputError, match=word) as info:
+            EvolutionSettings(**kw)
+        assert info.value.arg == "symmetry"
+    from mpo_fronts.driver import evolve
+
+    with pytest.raises(InputError, match="graded") as info:
+        evolve(mf.xxz_chain(6, W=1.0, seed=1), "Z", 2, [0.5],
+                         EvolutionSettings(chi=8, dt=0.1, symmetry="u1"), graded=True)
+    assert info.value.arg == "graded"
+
+
+def _u1_description(**evolution):
+    from mpo_fronts.config import parse_description
+
+    return parse_description({"model": {"kind": "xxz", "L": 6, "W": 1.0, "delta": 0.7},
+                              "operators": {"w": "Z", "site": 2, "v": ["X", "Z"]},
+                              "state": {"kind": "random_product", "samples": 2},
+                              "times": {"values": [0.3, 0.8, 1.2]},
+                              "evolution": {"chi": 8, "dt": 0.05, "chunk": 2, "symmetry": "u1", **evolution},
+                              "ensemble": {"realizations": 1, "seed": 5},
+                              "run": {"checkpoint_interval": 1e-6}})
+
+
+def test_ensemble_checkpoint_resume_with_u1_repeats_the_uninterrupted_run(tmp_path):
+    # through the run directory (HDF5 checkpoints with complex tensors and bond charges), interrupted three times
+    from mpo_fronts.ensemble import compute_realization, run_ensemble
+    from mpo_fronts.store import RunDirectory
+
+    d = _u1_description()
+    run_ensemble(d, tmp_path / "ref", progress="none")
+    rd = RunDirectory.create(tmp_path / "ck", d)
+
+    class Stop(Exception):
+        pass
+
+    for n_stop in (3, 2, 4):
+        calls = {"n": 0}
+
+        def prog(k, t):
+            calls["n"] += 1
+            if calls["n"] == n_stop:
+                raise Stop
+
+        with pytest.raises(Stop):
+            compute_realization(str(rd.path), d.to_dict(), 0, f"attempt-{n_stop}", progress=prog)
+        ck = rd.load_checkpoint(0)
+        assert ck is not None and ck["state"]["engine"] == "u1" and np.iscomplexobj(ck["state"]["arrays"][0])
+    res = compute_realization(str(rd.path), d.to_dict(), 0, "final")
+    assert res["status"] == "done" and res["resumed_from"] > 0
+    a, b = mf.load(tmp_path / "ck"), mf.load(tmp_path / "ref")
+    assert b.engine["symmetry_used"] == "u1" and a.engine["symmetry_used"] == "u1"
+    for name in ("weights", "right_weight", "discarded_weight", "max_bond"):
+        assert np.array_equal(getattr(a, name), getattr(b, name)), name
+    for v in ("X", "Z"):
+        assert np.array_equal(a.otoc(v), b.otoc(v))
+    assert b.discarded_weight[0, -1] > 0  # chi = 8 truncates: the resume repeats the truncations too
+
+
+def test_driver_resume_with_auto_symmetry_follows_the_checkpoint(monkeypatch):
+    # with symmetry = "auto" a checkpoint is resumed by the engine that wrote it, bit for bit: a Z2 checkpoint of
+    # an older dt = "auto" run by OperatorTEBD, a U(1) checkpoint by ChargeTEBD; an explicit other symmetry is an
+    # error naming resume
+    from mpo_fronts import stepsize
+    from mpo_fronts.driver import Observer, evolve
+    from mpo_fronts.settings import EvolutionSettings
+
+    monkeypatch.setattr(stepsize, "auto_dt", _fake_auto_dt)
+    chain = mf.xxz_chain(8, W=1.0, seed=2)
+    times = [0.4, 0.8]
+
+    class Save(Observer):
+        def __init__(self):
+            self.ck = None
+
+        def after_block(self, engine, evolution):
+            if engine.blocks_done == 3:
+                self.ck = {"state": engine.state_dict(), "n_done": evolution.n_done, "wall_time": 0.0,
+                           "restarts": 0, "outputs": {k: v.copy() for k, v in evolution.outputs().items()}}
+
+    for dt, written, other in (("auto", "z2", "u1"), (0.1, "u1", "z2")):
+        s = EvolutionSettings(chi=8, dt=dt, chunk=1)
+        save = Save()
+        full = evolve(chain, "Z", 3, times, s.replace(symmetry=written), observers=[save])
+        resumed = evolve(chain, "Z", 3, times, s, resume=save.ck)
+        assert s.engine_symmetry(chain, "Z") == other  # what a fresh run would have used
+        assert resumed.engine["symmetry_used"] == written and resumed.restarts == 1
+        assert full.arrays["discarded_weight"][-1] > 0
+        for name in full.arrays:
+            assert np.array_equal(full.arrays[name], resumed.arrays[name]), name
+        with pytest.raises(InputError, match=f"checkpoint was written by the '{written}' engine") as info:
+            evolve(chain, "Z", 3, times, s.replace(symmetry=other), resume=save.ck)
+        assert info.value.arg == "resume"
+
+
+def test_fronts_run_of_a_u1_description_end_to_end(tmp_path, capsys):
+    from mpo_fronts.cli import main
+
+    toml = tmp_path / "run.toml"
+    toml.write_text('[model]\nkind = "xxz"\nL = 6\nW = 1.0\n\n[operators]\nw = "Z"\nsite = 2\n\n'
+                    '[times]\nvalues = [0.5, 1.0]\n\n[evolution]\nchi = 16\ndt = 0.1\nsymmetry = "u1"\n\n'
+                    '[ensemble]\nrealizations = 1\nseed = 4\n')
+    assert main(["run", str(toml), "--out", str(tmp_path / "out"), "--progress", "none"]) == 0
+    ens = mf.load(tmp_path / "out")
+    assert ens.engine["symmetry"] == "u1" and ens.engine["symmetry_used"] == "u1"
+    chain = mf.xxz_chain(6, fields=ens.fields[0])
+    ref = mf.evolve_otoc(chain, "Z", 2, [0.5, 1.0], chi=16, dt=0.1)  # the Z2 engine, nothing truncated at L = 6
+    assert np.abs(ens.otoc("X")[0] - ref.otoc("X")).max() < 1e-10
+    # a description asking for u1 where it cannot work exits 2 naming the key, before anything is written
+    bad = tmp_path / "bad.toml"
+    bad.write_text(toml.read_text().replace('w = "Z"', 'w = "X"'))
+    capsys.readouterr()
+    assert main(["run", str(bad), "--out", str(tmp_path / "bad")]) == 2
+    err = " ".join(capsys.readouterr().err.split())
+    assert "evolution.symmetry" in err and "'Z' only" in err and not (tmp_path / "bad").exists()
