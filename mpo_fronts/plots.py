@@ -2,7 +2,15 @@
 
 Each ``plot_*`` function takes a loaded ensemble (see :func:`mpo_fronts.load`) and returns a
 :class:`matplotlib.figure.Figure` built without pyplot, so nothing touches the user's interactive backend;
-:func:`write_figures` saves them as PNG and PDF through the Agg renderer. Colour maps are perceptually uniform
+:func:`write_figures` saves them as PNG and PDF through the Agg renderer.
+
+Every ``plot_*`` function also draws into Axes the caller made (``ax=``): one Axes for the one-panel figures
+(``heatmap``, ``convergence``, ``discarded``), a sequence of two for the two-panel ones (``light_cone``,
+``front``, ``growth``, ``entropy``: in the order of the panels, left to right), and a (2, n) array (or a flat
+sequence of 2 n, density panels first) for ``distribution`` with n sites. It then returns the figure those Axes
+belong to (``ax.figure``), so the return value is always the Figure drawn into, and it leaves that figure's
+suptitle and legends alone: what the own figure says in its suptitle goes into the title of the first Axes, and
+a figure legend becomes a legend below the first Axes. With ``ax=None`` each function makes its own figure. Colour maps are perceptually uniform
 and stay ordered in greyscale (cividis for C, viridis for densities); lines also differ by style and marker,
 so every figure reads in black and white.
 
@@ -18,7 +26,14 @@ Figures (names for ``only``):
   (needs convergence data, see ``fronts converge``);
 * ``front``: right-weight profiles at several times and the front width against time on log axes;
 * ``growth``: the local growth exponent alpha = d ln C / d ln t per distance (median and interquartile band) and
-  the histogram of the exponents of the growth stages (see :mod:`mpo_fronts.growth`).
+  the histogram of the exponents of the growth stages (see :mod:`mpo_fronts.growth`);
+* ``entropy``: the heat map of C beside the operator entanglement entropy of W(t) at every bond (mean over
+  realizations, bond index vs log time, W's site marked), with the bond-saturation contour of the trust mask;
+* ``discarded``: the cumulative discarded weight at every bond (mean over realizations, log colour), i.e. where
+  along the chain the truncation lost weight and when.
+
+``entropy`` and ``discarded`` need the per-bond datasets ``bond_entropy`` and ``bond_discarded`` (result files
+from version 0.2 on); :func:`write_figures` skips them for older files and says why.
 """
 
 from __future__ import annotations
@@ -33,12 +48,13 @@ from . import trust
 from .errors import InputError, require
 
 __all__ = ["FIGURES", "plot_heatmap", "plot_distribution", "plot_light_cone", "plot_convergence", "plot_front",
-           "plot_growth", "write_figures"]
+           "plot_growth", "plot_entropy", "plot_discarded", "write_figures", "FigureSkipped"]
 
 _FORMATS = ("png", "pdf", "svg")
 _C_LABEL = "C(r, t) = 1 - Re Tr[W(t) V_r W(t) V_r] / 2^L"
 _T_LABEL = "time t (1/J)"
 _D_LABEL = "distance d = |r - i| (sites)"
+_B_LABEL = "bond b (between sites b and b + 1)"
 
 
 def _mpl():
@@ -53,6 +69,49 @@ def _figure(width: float, height: float, ncols: int = 1, nrows: int = 1, **kw):
     fig = Figure(figsize=(width, height), layout="constrained")
     axes = fig.subplots(nrows, ncols, squeeze=False, **kw)
     return fig, axes
+
+
+def _axes(ax, width: float, height: float, ncols: int = 1, nrows: int = 1, *, what: str, **kw):
+    """The figure and the (nrows, ncols) array of Axes to draw into, and whether the figure is our own.
+
+    ``ax=None``: a new figure (:func:`_figure`). Otherwise ``ax`` must hold exactly nrows * ncols Axes of one
+    figure (a single Axes, a sequence, or an array such as ``fig.subplots(...)`` returns; flattened in C order);
+    ``what`` says in words what is expected, for the error.
+    """
+    if ax is None:
+        fig, axes = _figure(width, height, ncols, nrows, **kw)
+        return fig, axes, True
+    _mpl()
+    from matplotlib.axes import Axes
+
+    try:
+        flat = np.asarray(ax, dtype=object).ravel()
+    except ValueError:  # ragged nesting
+        flat = np.asarray([ax], dtype=object)
+    n = nrows * ncols
+    kinds = sorted({type(a).__name__ for a in flat if not isinstance(a, Axes)})
+    if flat.size != n or kinds:
+        got = (f"{flat.size} Axes" if not kinds else f"{flat.size} object(s) of type {', '.join(kinds)}")
+        raise InputError(f"ax must be {what} (or None for a new figure), got {got}", arg="ax")
+    if len({id(a.figure) for a in flat}) > 1:
+        raise InputError("ax: the Axes must all belong to one figure", arg="ax")
+    return flat[0].figure, flat.reshape(nrows, ncols), False
+
+
+def _finish(fig, own: bool, ax, suptitle: str, handles=None, ncols: int = 4) -> None:
+    """The suptitle and figure legend of our own figure; on the caller's figure, the first Axes' title and a
+    legend below that Axes instead (their figure's suptitle and legends are left alone)."""
+    if own:
+        if handles:
+            fig.legend(handles=handles, loc="outside lower center", ncols=min(len(handles), ncols), fontsize=7,
+                       frameon=False)
+        fig.suptitle(suptitle, fontsize=8)
+        return
+    if handles:
+        ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.16), ncols=min(len(handles), 2),
+                  fontsize=7, frameon=False)
+    title = ax.get_title()
+    ax.set_title(f"{title}\n{suptitle}" if title else suptitle, fontsize=8)
 
 
 def _log_edges(t: np.ndarray) -> np.ndarray:
@@ -94,14 +153,26 @@ def _colors(n: int, cmap: str = "viridis", lo: float = 0.1, hi: float = 0.8):
 # ------------------------------------------------------------------------------------------ figures
 def plot_heatmap(ens, threshold: float = 0.5, probe: str = "Z", *, levels: Sequence[float] | None = None,
                  use_trust: bool = True, max_discarded: float = trust.DEFAULT_MAX_DISCARDED,
-                 color_scale: str = "linear", c_min: float = 1e-4):
+                 color_scale: str = "linear", c_min: float = 1e-4, ax=None):
     """Ensemble-mean C(r, t) as a heat map on a log-time axis.
 
     Solid contour: mean curve at ``threshold``; dashed: median curve at ``threshold``; dotted: mean curve at
     the extra ``levels``. Hatched cells are untrusted (see :func:`mpo_fronts.trust.trust_mask`).
     ``color_scale="log"`` colours log10 C from ``c_min`` up (a front at C ~ 0.05 or a tail at 1e-3 is invisible
     on the linear 0..2 scale); values below ``c_min`` take the lowest colour. The legend sits below the axes.
+    ``ax``: one matplotlib Axes to draw into (its figure gets the colour bar; see the module docstring), or None
+    for a new figure. Returns the figure drawn into.
     """
+    fig, axes, own = _axes(ax, 6.4, 4.8, what="one matplotlib Axes")
+    a = axes[0, 0]
+    handles, info = _heatmap_panel(fig, a, ens, threshold, probe, levels, use_trust, max_discarded, color_scale,
+                                   c_min)
+    _finish(fig, own, a, f"{_C_LABEL}; trust: {info['source']}", handles)
+    return fig
+
+
+def _heatmap_panel(fig, ax, ens, threshold, probe, levels, use_trust, max_discarded, color_scale, c_min):
+    """The heat map of :func:`plot_heatmap` on ``ax``; returns the legend handles and the trust-mask info."""
     if color_scale not in ("linear", "log"):
         raise InputError(f"color_scale must be 'linear' or 'log', got {color_scale!r}", arg="color_scale")
     if not (isinstance(c_min, (int, float)) and 0 < c_min < 2):
@@ -119,8 +190,6 @@ def plot_heatmap(ens, threshold: float = 0.5, probe: str = "Z", *, levels: Seque
     mask, info = trust.trust_mask(ens, use_trust, max_discarded, probe)
     L = C.shape[2]
     untrusted = (~np.broadcast_to(mask, C.shape).all(axis=0))[keep] if mask is not None else np.zeros(mean.shape, bool)
-    fig, axes = _figure(6.4, 4.8)
-    ax = axes[0, 0]
     xe = np.arange(L + 1) - 0.5
     te = _log_edges(t)
     vmax = max(float(np.nanmax(mean)), 1.1 * theta)
@@ -164,25 +233,26 @@ def plot_heatmap(ens, threshold: float = 0.5, probe: str = "Z", *, levels: Seque
     ax.set_xlabel(f"site r (W at site i = {ens.site})")
     ax.set_ylabel(_T_LABEL)
     ax.set_title(_title(ens, probe.upper()), fontsize=9)
-    fig.legend(handles=handles, loc="outside lower center", ncols=min(len(handles), 4), fontsize=7, frameon=False)
-    fig.suptitle(f"{_C_LABEL}; trust: {info['source']}", fontsize=8)
-    return fig
+    return handles, info
 
 
-def plot_distribution(ens, r: int | Sequence[int] | None = None, probe: str = "Z", *, bins: int = 40):
+def plot_distribution(ens, r: int | Sequence[int] | None = None, probe: str = "Z", *, bins: int = 40, ax=None):
     """Distribution of C(r, t) over realizations at one site r (or several, side by side), as a density over time.
 
     Top: histogram density (viridis) with the mean (solid) and median (dashed). Bottom: Sarle's bimodality
     coefficient with its uniform-distribution value 5/9 (dotted). ``r`` is a site or a sequence of sites (one
     column each); the default is a distance that the front reaches within the data
     (:func:`mpo_fronts.analysis.reached_site`).
+    ``ax``: 2 n Axes for n sites, as a (2, n) array (row 0: densities, row 1: bimodality; ``fig.subplots(2, n)``)
+    or a flat sequence with the n density Axes first, or None for a new figure. Returns the figure drawn into.
     """
     sites = [r] if r is None or isinstance(r, (int, np.integer)) else list(r)
     if not sites:
         raise InputError("r must be a site, a non-empty sequence of sites or None (the default)", arg="r")
+    n = len(sites)
+    fig, axes, _ = _axes(ax, 1.0 + 5.4 * n, 5.2, ncols=n, nrows=2, sharex=True, gridspec_kw={"height_ratios": [3, 1]},
+                         what=f"2 x {n} matplotlib Axes for {n} site(s): a density and a bimodality panel per site")
     dists = [an.ensemble_distribution(ens, r=s, probe=probe, bins=bins) for s in sites]
-    fig, axes = _figure(1.0 + 5.4 * len(dists), 5.2, ncols=len(dists), nrows=2, sharex=True,
-                        gridspec_kw={"height_ratios": [3, 1]})
     for j, dist in enumerate(dists):
         _distribution_panel(fig, axes[0, j], axes[1, j], ens, dist, probe)
     return fig
@@ -227,18 +297,20 @@ def _distribution_panel(fig, ax, bx, ens, dist: dict, probe: str):
     return fig
 
 
-def plot_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, lc: dict | None = None, **opts):
+def plot_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, lc: dict | None = None, ax=None, **opts):
     """Crossing times t*(d; theta) with the ballistic and logarithmic fits and their confidence bands.
 
     Left: linear time axis (a ballistic cone is a straight line); right: log time axis (a logarithmic cone is
     a straight line). Filled circles: the ensemble curve, with bootstrap standard deviations; open circles:
     crossings excluded as untrusted; small grey points: single realizations.
+    ``ax``: two matplotlib Axes (linear, log time) to draw into, or None for a new figure. Returns the figure
+    drawn into.
     """
+    fig, axes, own = _axes(ax, 8.8, 4.0, ncols=2, what="2 matplotlib Axes (linear and log time axis)")
     if lc is None:
         lc = trust.ensemble_light_cone(ens, threshold, probe, **opts)
     d = lc["d"]
     cross, real = lc["crossings"], lc["realization_crossings"]
-    fig, axes = _figure(8.8, 4.0, ncols=2)
     colors = _colors(2, lo=0.2, hi=0.65)
     bands_drawn = False
     for j, ax in enumerate(axes[0]):
@@ -281,17 +353,18 @@ def plot_light_cone(ens, threshold: float = 0.5, probe: str = "Z", *, lc: dict |
     rr = lc["fits"]["ballistic"]["r_range"]
     ci = int(round(100 * lc["fits"]["ballistic"]["ci"]))
     bands = f"shaded: {ci}% bands of the fits" if bands_drawn else "no fit band (too few crossings or realizations)"
-    fig.suptitle(f"{_title(ens, lc['probe'])}; threshold C = {lc['threshold']:g}, fit range d = {rr[0]}..{rr[1]}, "
-                 f"{bands}", fontsize=8)
+    _finish(fig, own, axes[0, 0], f"{_title(ens, lc['probe'])}; threshold C = {lc['threshold']:g}, fit range "
+            f"d = {rr[0]}..{rr[1]}, {bands}")
     return fig
 
 
-def plot_convergence(ens, threshold: float = 0.5, probe: str = "Z"):
+def plot_convergence(ens, threshold: float = 0.5, probe: str = "Z", *, ax=None):
     """Largest |dC| between successive bond dimensions at, ahead of and behind the threshold contour.
 
     The changes are those of the probe of the convergence study (``probe`` is used only if the study does not
     name one); the contour is that of the ensemble-mean C of the loaded run for the same probe, on the side of
     W used for the light cone. The dotted line is the tolerance of the trust mask.
+    ``ax``: one matplotlib Axes to draw into, or None for a new figure. Returns the figure drawn into.
     """
     conv = getattr(ens, "convergence", None)
     if conv is None:
@@ -304,7 +377,7 @@ def plot_convergence(ens, threshold: float = 0.5, probe: str = "Z"):
     dC = np.asarray(conv["max_dC"], dtype=float)
     cols, _, side = an.one_side(C.shape[2], int(ens.site))
     regions = an.front_sites(C.mean(axis=0)[:, cols], theta)
-    fig, axes = _figure(5.6, 4.2)
+    fig, axes, _ = _axes(ax, 5.6, 4.2, what="one matplotlib Axes")
     ax = axes[0, 0]
     x = chis[1:]
     kinds = (("front", "at the front", "-", "o"), ("behind", "behind the front", "--", "s"),
@@ -327,14 +400,18 @@ def plot_convergence(ens, threshold: float = 0.5, probe: str = "Z"):
     return fig
 
 
-def plot_front(ens, n_profiles: int = 6, **opts):
-    """Right-weight front profiles at several times, and the front width against time on log axes."""
+def plot_front(ens, n_profiles: int = 6, *, ax=None, **opts):
+    """Right-weight front profiles at several times, and the front width against time on log axes.
+
+    ``ax``: two matplotlib Axes (profiles, width) to draw into, or None for a new figure. Returns the figure
+    drawn into.
+    """
+    fig, axes, own = _axes(ax, 8.8, 3.8, ncols=2, what="2 matplotlib Axes (profiles and width)")
     fr = trust.ensemble_front(ens, **opts)
     t = fr["times"]
     keep = _positive_times(t)
     # The output grid is usually log-spaced, so equally spaced indices are equally spaced in ln t.
     idx = np.unique(np.round(np.linspace(keep[0], keep[-1], min(n_profiles, keep.size))).astype(int))
-    fig, axes = _figure(8.8, 3.8, ncols=2)
     ax, bx = axes[0]
     markers = "osD^vP*X"
     for j, (k, c) in enumerate(zip(idx, _colors(idx.size, "cividis", 0.0, 0.85))):
@@ -360,7 +437,7 @@ def plot_front(ens, n_profiles: int = 6, **opts):
     bx.set_xlabel(_T_LABEL)
     bx.set_ylabel("front width w(t) (sites)")
     bx.legend(fontsize=7, loc="best")
-    fig.suptitle(_title(ens, None) + "; right end of W(t)", fontsize=8)
+    _finish(fig, own, ax, _title(ens, None) + "; right end of W(t)")
     return fig
 
 
@@ -374,7 +451,8 @@ def _growth_distances(g, n_max: int) -> list[int]:
 
 
 def plot_growth(ens, probe: str = "Z", *, distances: Sequence[int] | None = None, growth=None, n_max: int = 5,
-                use_trust: bool = True, max_discarded: float = trust.DEFAULT_MAX_DISCARDED, fig=None, **opts):
+                use_trust: bool = True, max_discarded: float = trust.DEFAULT_MAX_DISCARDED, fig=None, ax=None,
+                **opts):
     """Local growth exponent alpha(t) = d ln C / d ln t per distance, and the histogram of stage exponents.
 
     Left: median of alpha over realizations (line) and its interquartile band, one colour and line style per
@@ -393,11 +471,25 @@ def plot_growth(ens, probe: str = "Z", *, distances: Sequence[int] | None = None
     use_trust, max_discarded
         Trust mask as in :func:`plot_heatmap`.
     fig : matplotlib.figure.Figure, optional
-        Draw into this (empty) figure instead of a new one.
+        Draw into this (empty) figure instead of a new one (two panels are added to it).
+    ax : sequence of two matplotlib Axes, optional
+        Draw into these (exponents, histogram) instead; not together with ``fig``.
     **opts
         Passed to :func:`mpo_fronts.growth.ensemble_growth` (``window``, ``tol``, ...).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        The figure drawn into (``fig``, the figure of ``ax``, or a new one).
     """
     from .growth import ensemble_growth
+
+    if fig is not None and ax is not None:
+        raise InputError("give fig or ax, not both (fig: an empty figure to fill; ax: two Axes to draw into)",
+                         arg="ax")
+    own = ax is None
+    if ax is not None:
+        fig, axes, _ = _axes(ax, 0, 0, ncols=2, what="2 matplotlib Axes (exponents and histogram)")
 
     source = getattr(growth, "trusted_source", "")
     if growth is None:
@@ -413,7 +505,9 @@ def plot_growth(ens, probe: str = "Z", *, distances: Sequence[int] | None = None
         if bad or not ds:
             raise InputError(f"distances must be a non-empty list among 0..{int(g.d[-1])} (distances on the "
                              f"{g.side} side of W), got {list(distances)!r}", arg="distances")
-    if fig is None:
+    if not own:
+        ax, bx = axes[0]
+    elif fig is None:
         fig, axes = _figure(9.6, 4.0, ncols=2, gridspec_kw={"width_ratios": [3, 2]})
         ax, bx = axes[0]
     else:
@@ -458,8 +552,195 @@ def plot_growth(ens, probe: str = "Z", *, distances: Sequence[int] | None = None
                 color="0.3")
     bx.set_xlabel("stage exponent (slope of ln C vs ln t)")
     bx.set_ylabel("count (realizations x distances)")
-    fig.suptitle(f"{_title(ens, g.probe)}; growth stages, {g.side} side, trust: {source}", fontsize=8)
+    _finish(fig, own, ax, f"{_title(ens, g.probe)}; growth stages, {g.side} side, trust: {source}")
     return fig
+
+
+class FigureSkipped(UserWarning):
+    """A figure :func:`write_figures` left out because the ensemble lacks its data (the message says why)."""
+
+
+def _bond_array(ens, name: str) -> tuple[np.ndarray | None, str]:
+    """A per-bond dataset (R, n_t, L-1) of the ensemble, or None and the one-line reason why not."""
+    try:
+        value = getattr(ens, name, None)
+    except (KeyError, OSError):
+        value = None
+    if value is None:
+        return None, (f"this ensemble has no '{name}' dataset (result files written before mpo_fronts 0.2 lack "
+                      "it); run the description again with the current version to get it")
+    a = np.asarray(value, dtype=float)
+    want = (len(ens.realizations), len(ens.times), int(ens.L) - 1)
+    if a.shape != want:
+        return None, f"'{name}' has shape {a.shape}, expected (R, n_t, L-1) = {want}; the file is inconsistent"
+    return a, ""
+
+
+def _need_bond_array(ens, name: str, figure: str) -> np.ndarray:
+    a, why = _bond_array(ens, name)
+    if a is None:
+        raise InputError(f"the {figure!r} figure needs per-bond data: {why}")
+    return a
+
+
+def _w_marker(ax, site: int, color="w"):
+    """W's site on a bond axis (between bonds i - 1 and i): a dashed line and a triangle on the top edge."""
+    from matplotlib.lines import Line2D
+
+    x = site - 0.5
+    ax.axvline(x, color=color, lw=1.0, ls="--", zorder=4)
+    ax.plot([x], [1.0], marker="v", color="k", ms=7, clip_on=False, transform=ax.get_xaxis_transform(), zorder=5)
+    return Line2D([], [], color="k", marker="v", ls="--", lw=1.0, label=f"W at site i = {site} (between bonds "
+                  f"{site - 1} and {site})")
+
+
+def _bond_mesh_axes(ax, t: np.ndarray, n_bonds: int, site: int):
+    """Limits, scales and labels shared by the per-bond heat maps (bond index vs log time)."""
+    from matplotlib.ticker import MaxNLocator
+
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+    ax.set_yscale("log")
+    te = _log_edges(t)
+    ax.set_ylim(te[0], te[-1])
+    ax.set_xlim(-0.5, n_bonds - 0.5)
+    ax.set_xlabel(f"{_B_LABEL}; W at site {site}")
+    ax.set_ylabel(_T_LABEL)
+
+
+def plot_entropy(ens, threshold: float = 0.5, probe: str = "Z", *, use_trust: bool = True,
+                 max_discarded: float = trust.DEFAULT_MAX_DISCARDED, color_scale: str = "linear",
+                 c_min: float = 1e-4, entropy_fraction: float = trust.DEFAULT_ENTROPY_FRACTION, ax=None):
+    """The heat map of C (as :func:`plot_heatmap`) beside the operator entanglement entropy of W(t) at every bond.
+
+    Right panel: S_b(t) = -sum p ln p of the normalised Schmidt weights of W(t) across bond (b, b + 1), in nats,
+    averaged over realizations (the dataset ``bond_entropy``), bond index against the same log time axis as
+    the left panel; W's site is marked between bonds i - 1 and i. Where the bond dimension chi of the run is
+    known, the dash-dotted contour is the mean entropy ``entropy_fraction * ln chi``, the saturation criterion of
+    the trust mask (:func:`mpo_fronts.trust.trust_from_bonds`), and the colour bar marks ln chi if reached.
+
+    Parameters
+    ----------
+    ens : loaded ensemble with ``bond_entropy`` (result files from version 0.2 on; else InputError)
+    threshold, probe, use_trust, max_discarded, color_scale, c_min
+        The C panel, as in :func:`plot_heatmap`.
+    entropy_fraction : float
+        Fraction of ln chi for the saturation contour.
+    ax : sequence of two matplotlib Axes (C, entropy), optional
+        Draw into these instead of a new figure.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        The figure drawn into.
+    """
+    from matplotlib.lines import Line2D
+
+    S_all = _need_bond_array(ens, "bond_entropy", "entropy")
+    fig, axes, own = _axes(ax, 11.5, 4.8, ncols=2, sharey=True,
+                           what="2 matplotlib Axes (C heat map and bond entropy)")
+    cx, sx = axes[0]
+    handles, info = _heatmap_panel(fig, cx, ens, threshold, probe, None, use_trust, max_discarded, color_scale,
+                                   c_min)
+    t = np.asarray(ens.times, dtype=float)
+    keep = _positive_times(t)
+    t = t[keep]
+    S = S_all.mean(axis=0)[keep]
+    R, nb, site = S_all.shape[0], S.shape[1], int(ens.site)
+    be = np.arange(nb + 1) - 0.5
+    te = _log_edges(t)
+    vmax = max(float(np.nanmax(S)) if S.size else 0.0, 1e-12)
+    mesh = sx.pcolormesh(be, te, S, cmap="viridis", vmin=0.0, vmax=vmax, shading="flat", rasterized=True)
+    cb = fig.colorbar(mesh, ax=sx)
+    chi = (getattr(ens, "engine", None) or {}).get("chi")
+    chi = int(chi) if isinstance(chi, (int, np.integer, float)) and chi and chi > 1 else None
+    label = f"operator entanglement entropy S_b (nats)\nmean over {R} realization(s)"
+    if chi:
+        lnchi = float(np.log(chi))
+        label += f"; white line: ln chi = {lnchi:.3g}" if lnchi <= vmax else f"; ln chi = {lnchi:.3g} (chi = {chi})"
+        if lnchi <= vmax:
+            cb.ax.axhline(lnchi, color="w", lw=1.5)
+        level = entropy_fraction * lnchi
+        if t.size > 1 and nb > 1 and np.nanmax(S) >= level > np.nanmin(S):
+            sx.contour(np.arange(nb), t, S, levels=[level], colors="w", linewidths=1.4, linestyles="-.")
+            handles.append(Line2D([], [], color="0.3", ls="-.", lw=1.4,
+                                  label=f"mean S_b = {entropy_fraction:g} ln chi (trust: bond saturated)"))
+        else:
+            handles.append(Line2D([], [], ls="none", label=f"mean S_b {'<' if np.nanmax(S) < level else '>='} "
+                                  f"{entropy_fraction:g} ln chi everywhere"))
+    cb.set_label(label, fontsize=8)
+    handles.append(_w_marker(sx, site))
+    _bond_mesh_axes(sx, t, nb, site)
+    if own:  # the time axis is shared with the C panel
+        sx.set_ylabel("")
+    sx.set_title(f"entanglement of W(t) across each bond, mean over {R} realization(s)", fontsize=9, pad=9)
+    _finish(fig, own, cx, f"{_C_LABEL} (left) and operator entanglement entropy of W(t) (right); "
+            f"trust: {info['source']}", handles)
+    return fig
+
+
+def plot_discarded(ens, *, ax=None):
+    """Where along the chain truncation lost weight: the cumulative discarded weight at every bond, log colour.
+
+    Cell (b, t): the Frobenius weight of W dropped at bond (b, b + 1) up to time t (the dataset
+    ``bond_discarded``), averaged over realizations, bond index against log time; cells where no weight was
+    dropped are left blank (dotted background), W's site is marked between bonds i - 1 and i. The title gives
+    the largest total of one realization.
+
+    Parameters
+    ----------
+    ens : loaded ensemble with ``bond_discarded`` (result files from version 0.2 on; else InputError)
+    ax : one matplotlib Axes, optional
+        Draw into it instead of a new figure.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        The figure drawn into.
+    """
+    from matplotlib.colors import LogNorm
+    from matplotlib.patches import Patch, Rectangle
+
+    D_all = _need_bond_array(ens, "bond_discarded", "discarded")
+    fig, axes, own = _axes(ax, 6.4, 4.8, what="one matplotlib Axes")
+    ax = axes[0, 0]
+    t = np.asarray(ens.times, dtype=float)
+    keep = _positive_times(t)
+    t = t[keep]
+    D = D_all.mean(axis=0)[keep]
+    R, nb, site = D_all.shape[0], D.shape[1], int(ens.site)
+    be = np.arange(nb + 1) - 0.5
+    te = _log_edges(t)
+    ax.add_patch(Rectangle((be[0], te[0]), be[-1] - be[0], te[-1] - te[0], facecolor="w", edgecolor="0.6",
+                           hatch="..", lw=0, zorder=0))
+    handles = [Patch(facecolor="w", edgecolor="0.6", hatch="..", label="no weight discarded")]
+    pos = D[np.isfinite(D) & (D > 0)]
+    if pos.size:
+        hi = float(pos.max())
+        lo = max(float(pos.min()), hi * 1e-12)
+        norm = LogNorm(vmin=min(lo, hi / 10), vmax=hi)
+        cmap = _cmap_with_bad("magma_r")
+        mesh = ax.pcolormesh(be, te, np.ma.masked_where(~(D > 0), D), cmap=cmap, norm=norm, shading="flat",
+                             rasterized=True, zorder=1)
+        cb = fig.colorbar(mesh, ax=ax)
+        cb.set_label(f"cumulative discarded weight per bond (log scale)\nmean over {R} realization(s)", fontsize=8)
+    else:
+        ax.text(0.5, 0.5, "no weight discarded at any bond (the bond dimension never reached chi)", ha="center",
+                va="center", transform=ax.transAxes, fontsize=8, color="0.3", zorder=6)
+    handles.append(_w_marker(ax, site, color="0.55"))
+    _bond_mesh_axes(ax, t, nb, site)
+    total = D_all.sum(axis=2)
+    worst = float(np.nanmax(total)) if total.size else 0.0
+    ax.set_title(_title(ens, None), fontsize=9, pad=9)  # pad: room for W's marker
+    _finish(fig, own, ax, f"Frobenius weight of W(t) dropped by truncation at bond (b, b + 1) up to time t,\nmean "
+            f"over {R} realization(s); largest total over bonds of one realization: {worst:.3g}", handles, ncols=2)
+    return fig
+
+
+def _cmap_with_bad(name: str):
+    """A copy of a registered colour map whose masked cells are transparent."""
+    import matplotlib
+
+    return matplotlib.colormaps[name].with_extremes(bad=(0, 0, 0, 0))
 
 
 FIGURES: dict[str, Callable[..., Any]] = {
@@ -469,7 +750,12 @@ FIGURES: dict[str, Callable[..., Any]] = {
     "convergence": plot_convergence,
     "front": plot_front,
     "growth": plot_growth,
+    "entropy": plot_entropy,
+    "discarded": plot_discarded,
 }
+
+#: Figures that need data not every ensemble has; :func:`write_figures` leaves them out of the default set.
+_NEEDS = {"entropy": "bond_entropy", "discarded": "bond_discarded"}
 
 
 def _check_only(only) -> list[str]:
@@ -492,7 +778,7 @@ def _check_only(only) -> list[str]:
 def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshold: float = 0.5, probe: str = "Z",
                   formats: Sequence[str] = ("png", "pdf"), *, r: int | Sequence[int] | None = None, dpi: int = 150,
                   n_boot: int = 500, seed: int = 0, use_trust: bool = True,
-                  max_discarded: float = trust.DEFAULT_MAX_DISCARDED, color_scale: str = "linear") -> list[Path]:
+                  max_discarded: float = trust.DEFAULT_MAX_DISCARDED, color_scale: str = "linear") -> "FigureFiles":
     """Write the figures of a loaded ensemble to ``outdir``, one file per figure and format.
 
     Parameters
@@ -501,9 +787,11 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
     outdir : path
         Created if missing; files are named ``<figure>.<format>``.
     only : str or iterable of str, optional
-        Figure names (``heatmap``, ``distribution``, ``light_cone``, ``convergence``, ``front``, ``growth``); default
-        all. Without convergence data the ``convergence`` figure is skipped unless asked for by name, which is
-        an error.
+        Figure names (``heatmap``, ``distribution``, ``light_cone``, ``convergence``, ``front``, ``growth``,
+        ``entropy``, ``discarded``); default all. A figure whose data the ensemble lacks (``convergence`` without
+        a convergence study; ``entropy`` and ``discarded`` for result files older than 0.2, which have no
+        per-bond datasets) is skipped from the default set, with its reason in ``skipped`` of the returned list
+        and a one-line :class:`FigureSkipped` warning; asking for it by name is an error (nothing written).
     threshold : float
         theta on the [0, 2] scale of C, for contours and crossing times.
     probe : {'X', 'Y', 'Z'}
@@ -522,8 +810,8 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
 
     Returns
     -------
-    list of Path
-        The files written.
+    FigureFiles
+        The files written (a list of Path); its ``skipped`` maps each figure left out to the reason.
     """
     names = _check_only(only)
     fmts = [formats] if isinstance(formats, str) else list(formats)
@@ -533,16 +821,32 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
     an.probe_otoc(ens, probe)
     if color_scale not in ("linear", "log"):
         raise InputError(f"color_scale must be 'linear' or 'log', got {color_scale!r}", arg="color_scale")
+    skipped: dict[str, str] = {}
     if getattr(ens, "convergence", None) is None:
         if only is not None and "convergence" in names:
             raise InputError("only names 'convergence', but this ensemble has no bond-dimension convergence "
                              "data; run 'fronts converge' first or choose other figures")
         names = [n for n in names if n != "convergence"]
+        if only is None:
+            skipped["convergence"] = "no bond-dimension convergence data (run 'fronts converge' to get it)"
+    for name, data in _NEEDS.items():
+        if name in names:
+            _, why = _bond_array(ens, data)
+            if why:
+                if only is not None:
+                    raise InputError(f"only names {name!r}, but {why}; or choose other figures", arg="only")
+                names.remove(name)
+                skipped[name] = why
     require("matplotlib", "plot")
     out = Path(outdir)
     out.mkdir(parents=True, exist_ok=True)
+    import warnings
+
+    for name, why in skipped.items():
+        if name != "convergence":  # convergence is optional by design; the per-bond data missing is worth a word
+            warnings.warn(f"figure {name!r} skipped: {why}", FigureSkipped, stacklevel=2)
     lc = None
-    written: list[Path] = []
+    written = FigureFiles(skipped=skipped)
     for name in names:
         if name == "heatmap":
             fig = plot_heatmap(ens, threshold, probe, use_trust=use_trust, max_discarded=max_discarded,
@@ -557,6 +861,11 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
             fig = plot_convergence(ens, threshold, probe)
         elif name == "growth":
             fig = plot_growth(ens, probe, use_trust=use_trust, max_discarded=max_discarded)
+        elif name == "entropy":
+            fig = plot_entropy(ens, threshold, probe, use_trust=use_trust, max_discarded=max_discarded,
+                               color_scale=color_scale)
+        elif name == "discarded":
+            fig = plot_discarded(ens)
         else:
             fig = plot_front(ens, n_boot=n_boot, seed=seed, use_trust=use_trust, max_discarded=max_discarded)
         for fmt in fmts:
@@ -564,6 +873,14 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
             fig.savefig(path, dpi=dpi, metadata=_metadata(fmt))
             written.append(path)
     return written
+
+
+class FigureFiles(list):
+    """The files :func:`write_figures` wrote (a list of Path), with ``skipped``: {figure: why it was left out}."""
+
+    def __init__(self, paths=(), skipped: dict[str, str] | None = None):
+        super().__init__(paths)
+        self.skipped = dict(skipped or {})
 
 
 def _metadata(fmt: str) -> dict[str, str]:
