@@ -58,6 +58,7 @@ __all__ = [
     "one_side", "typical_value", "ensemble_curve", "ensemble_statistics", "sarle_bimodality", "distribution",
     "crossing_times", "fit_line", "fit_range", "bootstrap_crossings", "light_cone", "front_moments",
     "front_shape", "front_sites", "probe_otoc", "ensemble_distribution", "reached_site", "DISTRIBUTION_REACH",
+    "evolution_settings",
 ]
 
 CROSSED, UNREACHED, EARLY, UNTRUSTED = 0, 1, 2, 3
@@ -1188,6 +1189,15 @@ def probe_otoc(ens, probe: str) -> np.ndarray:
         raise InputError(f"probe must be one of 'X', 'Y', 'Z' (this run stores {stored}), got {probe!r}",
                          arg="probe")
     return np.asarray(ens.otoc(probe.upper()), dtype=float)  # the ensemble says if it cannot provide it
+
+
+def evolution_settings(ens) -> dict:
+    """The evolution settings of a loaded ensemble (``ens.evolution``; ``ens.engine`` for objects that only have
+    the name before 0.2); an empty dict when it has neither."""
+    ev = getattr(ens, "evolution", None)
+    if ev is None:
+        ev = getattr(ens, "engine", None)
+    return dict(ev or {})
 
 
 #: Default level that the ensemble-median C must reach at a distance for the distribution figure to use it.

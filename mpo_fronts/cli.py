@@ -443,7 +443,7 @@ def _cmd_check(args) -> int:
                          default=str).replace("NaN", "null"))
     else:
         w = res.where
-        e = res.engine
+        e = res.evolution
         _say(f"check at L = {res.L} (W at site {res.site}), chi={e['chi']}, dt={e['dt']}, order {e['order']}, "
              f"cutoff {e['cutoff']:g}, {len(res.per_realization)} realization(s) against dense exact evolution",
              f"largest |C_engine - C_exact| = {res.max_deviation:.3g} (realization {w['realization']}, probe "
@@ -562,7 +562,8 @@ def _trotter_estimate(ens, other_path, probe: str) -> dict:
     other = _load(other_path)
     a, b = dict(ens.description), dict(other.description)
     ea, eb = dict(a.get("evolution", a.get("engine", {}))), dict(b.get("evolution", b.get("engine", {})))
-    if ens.engine.get("dt_used", ens.engine.get("dt")) == other.engine.get("dt_used", other.engine.get("dt")):
+    ev, ev_other = ens.evolution, other.evolution
+    if ev.get("dt_used", ev.get("dt")) == ev_other.get("dt_used", ev_other.get("dt")):
         raise InputError(f"--trotter {other_path}: it ran at the same time step as {ens.path}; give a run of the "
                          "same description at a different evolution.dt (for example half of it)")
     for x in (ea, eb):
@@ -581,8 +582,8 @@ def _trotter_estimate(ens, other_path, probe: str) -> dict:
     from .analysis import probe_otoc
 
     return trotter_convergence(probe_otoc(ens, probe)[ia], probe_otoc(other, probe)[ib],
-                               float(ens.engine.get("dt_used", ens.engine["dt"])),
-                               float(other.engine.get("dt_used", other.engine["dt"])), int(ens.engine["order"]))
+                               float(ev.get("dt_used", ev["dt"])),
+                               float(ev_other.get("dt_used", ev_other["dt"])), int(ev["order"]))
 
 
 def _cmd_plot(args) -> int:

@@ -13,7 +13,8 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .analysis import CROSSED, LAWS, STATUS_NAMES, Record, crossing_times, ensemble_distribution, one_side
+from .analysis import (CROSSED, LAWS, STATUS_NAMES, Record, crossing_times, ensemble_distribution,
+                       evolution_settings, one_side)
 from .growth import ensemble_growth, growth_summary
 from .trust import (DEFAULT_MAX_DISCARDED, DEFAULT_TSTAR_TOL, LARGE_DISCARDED_WEIGHT, discarded_weight_warnings,
                     ensemble_front, ensemble_light_cone, trust_mask)
@@ -228,7 +229,7 @@ def summarize(ens, threshold: float = 0.5, probe: str = "Z", *, curve: str = "me
         "warnings": warnings,
         "largest_discarded_weight": float(np.nanmax(dw)) if dw.size else None,
         "largest_bond": int(mb.max()) if mb.size else None,
-        "engine": dict(getattr(ens, "engine", {}) or {}),
+        "evolution": evolution_settings(ens),
         "description": dict(getattr(ens, "description", {}) or {}),
     }
     return jsonable(out)
@@ -390,7 +391,7 @@ def format_summary(d: Mapping[str, Any]) -> str:
     ]
     cr = d.get("crossings") or {}
     trust = d.get("trust") or {}
-    eng = d.get("engine") or {}
+    eng = d.get("evolution") or d.get("engine") or {}  # 'engine' in summaries before 0.2
     if cr.get("t_low") is not None:
         budget = str(cr.get("error_budget", "")).split("; see ")[0]
         lines += ["", f"crossing times t* (1/J); {budget}"]
@@ -423,5 +424,5 @@ def format_summary(d: Mapping[str, Any]) -> str:
     lines += _growth_lines(d.get("growth") or {})
     lines += _configuration_lines(d.get("configurations"), d.get("threshold"))
     if eng:
-        lines.append("engine: " + ", ".join(f"{k} = {_fmt(v, 'g', 'none')}" for k, v in eng.items()))
+        lines.append("evolution: " + ", ".join(f"{k} = {_fmt(v, 'g', 'none')}" for k, v in eng.items()))
     return "\n".join(lines)

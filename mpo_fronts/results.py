@@ -79,22 +79,27 @@ class Ensemble:
         Seconds per realization.
     description : dict
         The resolved run description.
-    engine : dict
-        chi, dt, order, cutoff, chunk, max_step (largest Trotter step used), svd_floor.
+    evolution : dict
+        The evolution settings (chi, dt, order, cutoff, chunk, truncation, ...), ``max_step`` (largest Trotter
+        step used) and what the driver recorded (``dt_used``, ``symmetry_used``, ``splits``, ...); also under
+        its name before 0.2, ``engine``.
+    state_kind : str
+        The kind of initial state (``description["state"]["kind"]``: 'infinite_temperature', ...); also under
+        its name before 0.2, ``state``.
     convergence : dict or None
         Arrays of a bond-dimension convergence study (``fronts converge``), else None.
     missing : list of int
         Realizations of the description not (yet) present.
     """
 
-    def __init__(self, source: _Source, realizations: np.ndarray, description: dict, engine: dict, meta: dict,
+    def __init__(self, source: _Source, realizations: np.ndarray, description: dict, evolution: dict, meta: dict,
                  path: Path | None = None, convergence: dict | None = None):
         self._source = source
         self._cache: dict[str, np.ndarray] = {}
         self.realizations = np.asarray(realizations, dtype=int)
         self.description = description
         self._desc = parse_description(description)
-        self.engine = engine
+        self.evolution = evolution
         self.meta = meta
         self.path = path
         self.convergence = convergence
@@ -103,12 +108,22 @@ class Ensemble:
         self.site = self._desc.site
         self.w = self._desc.w
         self.probes = self._desc.probes
-        self.state = self._desc.state_kind
+        self.state_kind = self._desc.state_kind
         self.state_names = self._desc.state_names
         self.model = self._desc.kind
         self.version = meta.get("version")
         self.conventions = meta.get("conventions")
         self.missing = [k for k in range(self._desc.realizations) if k not in set(self.realizations.tolist())]
+
+    @property
+    def engine(self) -> dict:
+        """The evolution settings (:attr:`evolution`) under their name before 0.2."""
+        return self.evolution
+
+    @property
+    def state(self) -> str:
+        """The kind of initial state (:attr:`state_kind`) under its name before 0.2."""
+        return self.state_kind
 
     def __len__(self) -> int:
         return int(self.realizations.size)
@@ -116,7 +131,7 @@ class Ensemble:
     def __repr__(self) -> str:
         return (f"<Ensemble {self.model} L={self.L} w={self.w} site={self.site}: {len(self)} of "
                 f"{self._desc.realizations} realizations, {self.times.size} times up to t={self.times[-1]:g}, "
-                f"chi={self.engine.get('chi')}{', with convergence study' if self.convergence else ''}>")
+                f"chi={self.evolution.get('chi')}{', with convergence study' if self.convergence else ''}>")
 
     def _get(self, name: str) -> np.ndarray:
         if name not in self._cache:
@@ -132,7 +147,7 @@ class Ensemble:
             raise InputError(f"probe v must be one of 'X', 'Y', 'Z', got {v!r}")
         v = v.upper()
         if v not in self.probes:
-            if self.state == "infinite_temperature":
+            if self.state_kind == "infinite_temperature":
                 from .readout import otoc_from_weights
 
                 return otoc_from_weights(self.weights, v)
@@ -142,7 +157,7 @@ class Ensemble:
 
     def state_otoc(self, v: str = "Z") -> np.ndarray:
         """Product-state OTOCs of each basis state, shape (R, samples, n_t, L) (product-state runs only)."""
-        if self.state == "infinite_temperature":
+        if self.state_kind == "infinite_temperature":
             raise InputError("this run is at infinite temperature; it has no product-state OTOCs")
         if v not in self.probes:
             raise InputError(f"probe {v!r} was not stored; this run stores {', '.join(self.probes)}")
@@ -151,7 +166,7 @@ class Ensemble:
     @property
     def bits(self) -> np.ndarray | None:
         """Basis states of product-state runs, shape (R, samples), str; None at infinite temperature."""
-        if self.state == "infinite_temperature":
+        if self.state_kind == "infinite_temperature":
             return None
         raw = self._get("bits")
         return np.vectorize(lambda b: b.decode() if isinstance(b, bytes) else str(b))(raw)
@@ -195,7 +210,7 @@ class Ensemble:
         })
         return xr.Dataset(data, coords={"realization": R, "time": self.times, "site": np.arange(self.L),
                                         "bond": np.arange(self.L - 1), "letter": list(LETTER_AXIS)},
-                          attrs={"description": _json(self.description), "engine": _json(self.engine),
+                          attrs={"description": _json(self.description), "evolution": _json(self.evolution),
                                  "version": str(self.version), "conventions": str(self.conventions),
                                  "w": self.w, "w_site": self.site})
 
@@ -211,7 +226,7 @@ class Ensemble:
         names = [f"otoc/{v}" for v in self.probes] + ["weights", "right_weight", "discarded_weight",
                                                       "max_bond", "fields", "couplings", "seed"]
         names += [n for n in OPTIONAL if self._optional(n) is not None]
-        if self.state != "infinite_temperature":
+        if self.state_kind != "infinite_temperature":
             names += ["bits"] + [f"state_otoc/{v}" for v in self.probes]
 
         def write(f):
@@ -220,7 +235,7 @@ class Ensemble:
             f.attrs["conventions"] = conventions
             f.attrs["description"] = _json(self.description)
             f.attrs["fingerprint"] = self._desc.fingerprint()
-            f.attrs["evolution"] = _json(self.engine)
+            f.attrs["evolution"] = _json(self.evolution)
             f.attrs["source_versions"] = _json(sorted({str(x) for x in self.meta.get("versions", [self.version])}))
             for name, data in (("times", self.times), ("realizations", self.realizations),
                                ("wall_time", self.wall_time), ("max_step", self._get("max_step"))):
@@ -265,7 +280,7 @@ def _load_dir(path: Path) -> Ensemble:
     done = rd.done()
     files = [rd.result_path(k) for k in done]
     meta = RunDirectory._read_run_file(rd.path)
-    engine = dict(rd.description.engine)
+    evolution = dict(rd.description.engine)
     versions = set()
     if files:
         max_step = 0.0
@@ -274,10 +289,10 @@ def _load_dir(path: Path) -> Ensemble:
                 e = evolution_attr(f)
                 max_step = max(max_step, float(e.get("max_step", 0.0)))
                 versions.add(str(f.attrs["version"]))
-        engine.update({k: v for k, v in e.items() if k != "max_step"})
-        engine["max_step"] = max_step
+        evolution.update({k: v for k, v in e.items() if k != "max_step"})
+        evolution["max_step"] = max_step
     info = {"version": meta.get("version"), "conventions": meta.get("conventions"), "versions": sorted(versions)}
-    return Ensemble(_Source(files=files), np.asarray(done, dtype=int), meta["description"], engine, info,
+    return Ensemble(_Source(files=files), np.asarray(done, dtype=int), meta["description"], evolution, info,
                     path=rd.path)
 
 
@@ -289,22 +304,22 @@ def _load_merged(path: Path) -> Ensemble:
             fmt = f.attrs.get("format")
             if fmt == RESULT_FORMAT:  # a single realization file
                 desc = json.loads(f.attrs["description"])
-                engine = evolution_attr(f)
+                evolution = evolution_attr(f)
                 k = int(f.attrs["realization"])
                 meta = {"version": f.attrs["version"], "conventions": f.attrs["conventions"]}
-                return Ensemble(_Source(files=[path]), np.array([k]), desc, engine, meta, path=path)
+                return Ensemble(_Source(files=[path]), np.array([k]), desc, evolution, meta, path=path)
             if fmt != MERGED_FORMAT:
                 raise RunDirectoryError(f"{path}: not a file written by mpo_fronts (format {fmt!r})")
             desc = json.loads(f.attrs["description"])
-            engine = evolution_attr(f)
-            engine["max_step"] = float(np.max(f["max_step"][()])) if f["max_step"].size else 0.0
+            evolution = evolution_attr(f)
+            evolution["max_step"] = float(np.max(f["max_step"][()])) if f["max_step"].size else 0.0
             reals = f["realizations"][()]
             meta = {"version": f.attrs["version"], "conventions": f.attrs["conventions"],
                     "versions": json.loads(f.attrs.get("source_versions", "[]"))}
             conv = _read_convergence_group(f["convergence"]) if "convergence" in f else None
     except OSError as exc:
         raise RunDirectoryError(f"{path}: cannot read the file as HDF5 ({exc})") from None
-    return Ensemble(_Source(merged=path), reals, desc, engine, meta, path=path, convergence=conv)
+    return Ensemble(_Source(merged=path), reals, desc, evolution, meta, path=path, convergence=conv)
 
 
 def convergence_runs(path) -> dict[int, Path]:
@@ -407,7 +422,7 @@ def _combine(ens: list[Ensemble]) -> Ensemble:
     names = [f"otoc/{v}" for v in ens[0].probes] + ["weights", "right_weight", "discarded_weight", "max_bond",
                                                     "fields", "couplings", "seed", "wall_time", "max_step"]
     names += [n for n in OPTIONAL if all(e._optional(n) is not None for e in ens)]
-    if ens[0].state != "infinite_temperature":
+    if ens[0].state_kind != "infinite_temperature":
         names += ["bits"] + [f"state_otoc/{v}" for v in ens[0].probes]
     order: dict[int, tuple[int, int]] = {}
     for i, e in enumerate(ens):
@@ -427,7 +442,7 @@ def _combine(ens: list[Ensemble]) -> Ensemble:
             else np.empty((0,))
     desc = dict(ens[0].description)
     desc["ensemble"] = dict(desc["ensemble"], realizations=max(e._desc.realizations for e in ens))
-    engine = dict(ens[0].engine, max_step=max(float(e.engine.get("max_step", 0.0)) for e in ens))
+    evolution = dict(ens[0].evolution, max_step=max(float(e.evolution.get("max_step", 0.0)) for e in ens))
     meta = {"version": ens[0].version, "conventions": ens[0].conventions,
             "versions": sorted({str(v) for e in ens for v in e.meta.get("versions", [e.version])})}
-    return Ensemble(_Source(arrays=arrays), np.asarray(ks), desc, engine, meta, path=None)
+    return Ensemble(_Source(arrays=arrays), np.asarray(ks), desc, evolution, meta, path=None)

@@ -53,7 +53,7 @@ import numpy as np
 
 from .analysis import (CROSSED, EARLY, UNREACHED, CURVES, FrontShape, LightCone, Record, check_curve, check_otoc,
                        check_threshold, check_times, crossing_times, ensemble_curve, front_moments, front_shape,
-                       light_cone, one_side, probe_otoc)
+                       evolution_settings, light_cone, one_side, probe_otoc)
 from .errors import LARGE_DISCARDED_WEIGHT, InputError
 
 __all__ = ["DEFAULT_MAX_DISCARDED", "DEFAULT_TSTAR_TOL", "DEFAULT_ENTROPY_FRACTION", "DEFAULT_ERROR_SPEED",
@@ -364,7 +364,7 @@ def trust_mask(ens, use_trust: bool = True, max_discarded: float = DEFAULT_MAX_D
     else:
         bd = _ensemble_array(ens, "bond_discarded")
         if bd is not None and bd.shape == (R, n_t, L - 1):
-            chi = (getattr(ens, "engine", None) or {}).get("chi")
+            chi = evolution_settings(ens).get("chi")
             mask = trust_from_bonds(bd, ens.times, int(ens.site), max_discarded, _ensemble_array(ens, "bond_entropy"),
                                     chi, entropy_fraction)
             info.update(source="bond_discarded",

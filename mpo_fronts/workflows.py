@@ -37,8 +37,8 @@ class ExactCheck:
         ``{k, max_deviation, discarded_weight, max_bond}`` per realization.
     L, site : int
         The small chain's length and the site of W on it.
-    engine : dict
-        The evolution settings used (those of the description).
+    evolution : dict
+        The evolution settings used (those of the description); also as ``engine``, its name before 0.2.
     times, deviation_by_time : list of float
         Output times and the largest deviation at each.
     """
@@ -48,9 +48,14 @@ class ExactCheck:
     per_realization: list
     L: int
     site: int
-    engine: dict
+    evolution: dict
     times: list = field(default_factory=list)
     deviation_by_time: list = field(default_factory=list)
+
+    @property
+    def engine(self) -> dict:
+        """The evolution settings (:attr:`evolution`) under their name before 0.2."""
+        return self.evolution
 
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
@@ -104,7 +109,7 @@ def check_against_exact(description: RunDescription, L: int = 10, realizations: 
                 progress(f"realization {k}: largest deviation {dev_k:.3g}, discarded weight "
                          f"{per[-1]['discarded_weight']:.3g}")
     return ExactCheck(max_deviation=worst["max_deviation"], where=worst.get("where", {}), per_realization=per,
-                      L=L, site=site, engine=description.engine, times=times.tolist(),
+                      L=L, site=site, evolution=description.engine, times=times.tolist(),
                       deviation_by_time=by_time.tolist())
 
 

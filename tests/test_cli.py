@@ -273,6 +273,7 @@ def test_check_command(tmp_path, capsys):
     assert main(["check", str(coarse), "--L", "6", "--realizations", "1", "--tol", "1e-6", "--json"]) == 1
     res = json.loads(capsys.readouterr().out)
     assert res["ok"] is False and res["max_deviation"] > 1e-6
+    assert res["evolution"]["dt"] == 0.6 and res["evolution"]["order"] == 2  # the settings checked
 
 
 def test_converge_command(tmp_path, capsys):
@@ -282,7 +283,7 @@ def test_converge_command(tmp_path, capsys):
                  "--progress", "none"]) == 0
     assert (out / "chi_002" / "run.json").is_file() and (out / "chi_004" / "run.json").is_file()
     ens = mf.load(out)
-    assert ens.engine["chi"] == 4 and ens.convergence is not None
+    assert ens.evolution["chi"] == 4 and ens.convergence is not None
     a, b = mf.load(out / "chi_002"), mf.load(out / "chi_004")
     np.testing.assert_array_equal(a.fields, b.fields)  # same seeds, identical disorder
     expect = np.abs(b.otoc("X") - a.otoc("X")).max(axis=0)  # max over realizations, computed here

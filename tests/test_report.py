@@ -18,9 +18,13 @@ def test_summarize_is_json_with_required_keys():
         for sub in ("value", "ci_low", "ci_high", "r_range", "n_points", "r2", "n_excluded_untrusted"):
             assert sub in back[key], (key, sub)
     assert back["trust"]["source"] == "convergence" and back["trusted_fraction"] == 1.0
-    assert back["engine"]["chi"] == 32 and back["largest_bond"] == 8
+    assert back["evolution"]["chi"] == 32 and back["largest_bond"] == 8 and "engine" not in back
     text = report.format_summary(s)
     assert "v_B" in text and "xi" in text and f"{s['butterfly_velocity']['value']:.4g}" in text
+    assert "evolution: chi = 32" in text
+    # a summary written before 0.2 kept the settings under 'engine': the text is the same
+    old = {("engine" if k == "evolution" else k): v for k, v in s.items()}
+    assert report.format_summary(old) == text
 
 
 def test_crossings_carry_intervals_one_per_distance():

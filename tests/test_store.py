@@ -247,17 +247,32 @@ def test_run_status_is_typed_and_reads_as_the_old_dict(small_run):
     assert js["max_bond"] == st.largest_bond and js["n_realizations"] == 3 and js["checkpointed"] == {}
 
 
-def test_to_xarray(small_run):
+def test_to_xarray(small_run, monkeypatch):
+    """Every array, coordinate and attribute of the Dataset equals the Ensemble's (xarray is in the test extra,
+    so this runs in CI); without xarray the error names the install command."""
     ens = load(small_run)
-    try:
-        import xarray  # noqa: F401
-    except ImportError:
-        with pytest.raises(MissingDependencyError, match="pip install"):
-            ens.to_xarray()
-    else:
-        ds = ens.to_xarray()
-        np.testing.assert_array_equal(ds["otoc_X"].values, ens.otoc("X"))
-        assert ds.sizes["realization"] == 3
+    ds = ens.to_xarray()
+    for v in ens.probes:
+        np.testing.assert_array_equal(ds[f"otoc_{v}"].values, ens.otoc(v))
+    for name in ("weights", "right_weight", "discarded_weight", "max_bond", "bond_discarded", "bond_entropy",
+                 "fields", "couplings", "wall_time"):
+        np.testing.assert_array_equal(ds[name].values, getattr(ens, name), err_msg=name)
+    np.testing.assert_array_equal(ds["realization"].values, ens.realizations)
+    np.testing.assert_array_equal(ds["time"].values, ens.times)
+    assert list(ds["letter"].values) == ["I", "X", "Y", "Z"] and ds.sizes["site"] == ens.L
+    assert json.loads(ds.attrs["description"]) == ens.description
+    assert json.loads(ds.attrs["evolution"]) == json.loads(json.dumps(ens.evolution))
+    assert ds.attrs["w"] == ens.w and ds.attrs["w_site"] == ens.site
+    monkeypatch.setitem(sys.modules, "xarray", None)  # import xarray now raises ImportError
+    with pytest.raises(MissingDependencyError, match="pip install"):
+        ens.to_xarray()
+
+
+def test_ensemble_names_before_0_2(small_run):
+    """Ensemble.engine and .state: the names before 0.2 of .evolution and .state_kind, the same objects."""
+    ens = load(small_run)
+    assert ens.engine is ens.evolution and ens.evolution["chi"] == 8
+    assert ens.state == ens.state_kind == "infinite_temperature"
 
 
 def test_load_errors(tmp_path):
