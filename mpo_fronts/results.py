@@ -14,9 +14,10 @@ from .atomic import _json, _package_info, atomic_h5
 from .config import parse_description
 from .errors import InputError, RunDirectoryError, require
 from .rundir import (CONVERGENCE_FILE, LETTER_AXIS, MERGED_FORMAT, OPTIONAL, RESULT_FORMAT, RUN_FILE, RunDirectory,
-                     _describe, _diff, evolution_attr)
+                     describe_dataset, description_diff, evolution_attr)
 
-__all__ = ["Ensemble", "load", "merge", "convergence_runs", "read_convergence"]
+__all__ = ["Ensemble", "load", "merge", "convergence_runs", "read_convergence", "write_convergence_group",
+           "read_convergence_group"]
 
 
 # ------------------------------------------------------------------------------------------- loading
@@ -239,17 +240,19 @@ class Ensemble:
             f.attrs["source_versions"] = _json(sorted({str(x) for x in self.meta.get("versions", [self.version])}))
             for name, data in (("times", self.times), ("realizations", self.realizations),
                                ("wall_time", self.wall_time), ("max_step", self._get("max_step"))):
-                _describe(f.create_dataset(name, data=data), name, merged=True)
+                describe_dataset(f.create_dataset(name, data=data), name, merged=True)
             for name in names:
-                _describe(f.create_dataset(name, data=self._get(name), compression="gzip", shuffle=True), name,
+                describe_dataset(f.create_dataset(name, data=self._get(name), compression="gzip", shuffle=True), name,
                           merged=True)
             if self.convergence is not None:
-                _write_convergence_group(f.create_group("convergence"), self.convergence)
+                write_convergence_group(f.create_group("convergence"), self.convergence)
 
         return atomic_h5(path, write)
 
 
-def _write_convergence_group(g, conv: dict) -> None:
+def write_convergence_group(g, conv: dict) -> None:
+    """Write the arrays of a convergence study (:func:`mpo_fronts.trust.bond_convergence`) into an HDF5 group:
+    numeric arrays as datasets, numbers as attributes, anything else as JSON attributes."""
     for key, value in conv.items():
         arr = np.asarray(value)
         if arr.dtype.kind in "biuf" and arr.ndim >= 1:
@@ -260,7 +263,8 @@ def _write_convergence_group(g, conv: dict) -> None:
             g.attrs[key] = _json(value if not isinstance(value, np.ndarray) else value.tolist())
 
 
-def _read_convergence_group(g) -> dict:
+def read_convergence_group(g) -> dict:
+    """The convergence arrays of an HDF5 group written by :func:`write_convergence_group`."""
     out: dict[str, Any] = {key: g[key][()] for key in g}
     for key, value in g.attrs.items():
         if isinstance(value, str):
@@ -273,13 +277,16 @@ def _read_convergence_group(g) -> dict:
     return out
 
 
+_write_convergence_group = write_convergence_group  # its private name, still re-exported by store.py
+
+
 def _load_dir(path: Path) -> Ensemble:
     import h5py
 
     rd = RunDirectory.open(path)
     done = rd.done()
     files = [rd.result_path(k) for k in done]
-    meta = RunDirectory._read_run_file(rd.path)
+    meta = RunDirectory.read_run_file(rd.path)
     evolution = dict(rd.description.engine)
     versions = set()
     if files:
@@ -316,7 +323,7 @@ def _load_merged(path: Path) -> Ensemble:
             reals = f["realizations"][()]
             meta = {"version": f.attrs["version"], "conventions": f.attrs["conventions"],
                     "versions": json.loads(f.attrs.get("source_versions", "[]"))}
-            conv = _read_convergence_group(f["convergence"]) if "convergence" in f else None
+            conv = read_convergence_group(f["convergence"]) if "convergence" in f else None
     except OSError as exc:
         raise RunDirectoryError(f"{path}: cannot read the file as HDF5 ({exc})") from None
     return Ensemble(_Source(merged=path), reals, desc, evolution, meta, path=path, convergence=conv)
@@ -342,7 +349,7 @@ def read_convergence(path) -> dict | None:
     if not f_path.is_file():
         return None
     with h5py.File(f_path, "r") as f:
-        return _read_convergence_group(f)
+        return read_convergence_group(f)
 
 
 def load(path) -> Ensemble:
@@ -406,7 +413,7 @@ def merge(sources: Iterable, out, overwrite: bool = False) -> tuple[Path, Ensemb
             for x in (a, b):
                 x.pop("run", None)
                 x["ensemble"] = {k: v for k, v in x.get("ensemble", {}).items() if k != "realizations"}
-            lines = _diff(a, b, names=(str(sources[0]), str(src))) or ["(the descriptions differ)"]
+            lines = description_diff(a, b, names=(str(sources[0]), str(src))) or ["(the descriptions differ)"]
             raise RunDirectoryError(f"{sources[0]} and {src} hold runs of different descriptions and cannot be "
                                     f"merged; nothing was written. Differences: {'; '.join(lines[:6])}"
                                     f"{' ...' if len(lines) > 6 else ''}")

@@ -23,7 +23,8 @@ from .config import RunDescription, parse_description
 from .errors import RunDirectoryError
 
 __all__ = ["RunDirectory", "Claim", "ClaimInfo", "RunStatus", "run_status", "RUN_FILE", "RESULT_FORMAT",
-           "MERGED_FORMAT", "CHECKPOINT_FORMAT", "CONVERGENCE_FILE", "LETTER_AXIS", "DATASETS", "OPTIONAL"]
+           "MERGED_FORMAT", "CHECKPOINT_FORMAT", "CONVERGENCE_FILE", "LETTER_AXIS", "DATASETS", "OPTIONAL",
+           "describe_dataset", "description_diff", "evolution_attr"]
 
 RUN_FILE = "run.json"
 RESULT_FORMAT = "mpo_fronts.realization/1"
@@ -134,12 +135,12 @@ def _read_claim(path: Path) -> ClaimInfo | None:
 
 
 # ------------------------------------------------------------------------------------------- run directory
-def _diff(a, b, prefix: str = "", names: tuple[str, str] = ("stored", "given")) -> list[str]:
+def description_diff(a, b, prefix: str = "", names: tuple[str, str] = ("stored", "given")) -> list[str]:
     """Dotted keys where two nested dicts differ, with both values (shortened)."""
     out = []
     if isinstance(a, dict) and isinstance(b, dict):
         for key in sorted(set(a) | set(b)):
-            out += _diff(a.get(key, "<unset>"), b.get(key, "<unset>"), f"{prefix}.{key}" if prefix else key, names)
+            out += description_diff(a.get(key, "<unset>"), b.get(key, "<unset>"), f"{prefix}.{key}" if prefix else key, names)
     elif a != b:
         sa, sb = repr(a), repr(b)
         out.append(f"{prefix}: {names[0]} {sa[:40] + ('...' if len(sa) > 40 else '')}, "
@@ -159,7 +160,8 @@ class RunDirectory:
 
     # ---------------------------------------------------------------- opening
     @staticmethod
-    def _read_run_file(path: Path) -> dict:
+    def read_run_file(path: Path) -> dict:
+        """The parsed run.json of a run directory (:class:`RunDirectoryError` when it cannot be read)."""
         try:
             return json.loads((path / RUN_FILE).read_text())
         except (OSError, ValueError) as exc:
@@ -173,7 +175,7 @@ class RunDirectory:
         if not (p / RUN_FILE).is_file():
             raise RunDirectoryError(f"{p}: not a run directory (no {RUN_FILE}); create one with "
                                     "'fronts run RUN.toml --out DIR'")
-        meta = cls._read_run_file(p)
+        meta = cls.read_run_file(p)
         try:
             desc = parse_description(meta["description"], source=str(p / RUN_FILE))
         except Exception as exc:  # noqa: BLE001 - a damaged or foreign run.json
@@ -194,7 +196,7 @@ class RunDirectory:
                                         "choose a new or empty output directory", arg="out")
             return
         if p.is_dir():
-            meta = RunDirectory._read_run_file(p)
+            meta = RunDirectory.read_run_file(p)
             if meta.get("fingerprint") != description.fingerprint():
                 stored = meta.get("description", {})
                 new = description.to_dict()
@@ -202,7 +204,7 @@ class RunDirectory:
                     if isinstance(d, dict):
                         d.pop("run", None)
                         d.get("ensemble", {}).pop("realizations", None)
-                lines = _diff(stored, new) or ["(the descriptions differ)"]
+                lines = description_diff(stored, new) or ["(the descriptions differ)"]
                 raise RunDirectoryError(f"{p} holds a run of a different description; nothing was changed. "
                                         f"Differences: {'; '.join(lines[:6])}"
                                         f"{' ...' if len(lines) > 6 else ''}. Use another output directory, "
@@ -228,7 +230,7 @@ class RunDirectory:
         p = self.path
         version, conventions = _package_info()
         if (p / RUN_FILE).is_file():
-            stored = parse_description(self._read_run_file(p)["description"])
+            stored = parse_description(self.read_run_file(p)["description"])
             if description.realizations <= stored.realizations:
                 # keep the stored (larger) count; this session's [run] options apply
                 self.description = description.replace(ensemble__realizations=stored.realizations)
@@ -428,7 +430,7 @@ DATASETS: dict[str, tuple[tuple[str, ...], str, str]] = {
 }
 
 
-def _describe(ds, name: str, merged: bool = False) -> None:
+def describe_dataset(ds, name: str, merged: bool = False) -> None:
     """The axes, units and meaning attributes of a dataset (see DATASETS)."""
     key = name.split("/")[0]
     if key not in DATASETS:
@@ -451,7 +453,7 @@ OPTIONAL = ("bond_discarded", "bond_entropy")
 
 def _write_arrays(f, result: dict) -> None:
     def put(name, data):
-        _describe(f.create_dataset(name, data=data), name)
+        describe_dataset(f.create_dataset(name, data=data), name)
 
     put("times", np.asarray(result["times"], dtype=float))
     for v, a in result["otoc"].items():

@@ -222,7 +222,8 @@ def converge(description: RunDescription, chis: Sequence[int], out, *, dt: float
     dict
         The convergence arrays (see :func:`mpo_fronts.trust.bond_convergence`).
     """
-    from .store import atomic_h5, load, _write_convergence_group, CONVERGENCE_FILE, RUN_FILE
+    from .store import atomic_h5, load, CONVERGENCE_FILE, RUN_FILE
+    from .results import write_convergence_group
 
     chis = sorted({int(c) for c in chis})
     if len(chis) < 2 or chis[0] < 1:
@@ -249,5 +250,5 @@ def converge(description: RunDescription, chis: Sequence[int], out, *, dt: float
     conv = dict(bond_convergence(otoc_by_chi, tol, rel_tol=rel_tol))
     conv.setdefault("probe", probe)
     conv.setdefault("tol", tol)
-    atomic_h5(out / CONVERGENCE_FILE, lambda f: _write_convergence_group(f, conv))
+    atomic_h5(out / CONVERGENCE_FILE, lambda f: write_convergence_group(f, conv))
     return conv
