@@ -133,7 +133,8 @@ def _check_vector(name: str, value, n: int) -> np.ndarray:
         raise InputError(f"{name} must have length {n} (one value per {'site' if name == 'fields' else 'bond'}), "
                          f"got shape {arr.shape}")
     if not np.all(np.isfinite(arr)):
-        raise InputError(f"{name} must be finite, got non-finite entries at positions {np.flatnonzero(~np.isfinite(arr)).tolist()}")
+        raise InputError(f"{name} must be finite, got non-finite entries at positions "
+                         f"{np.flatnonzero(~np.isfinite(arr)).tolist()}")
     return arr
 
 

@@ -75,8 +75,8 @@ def check_against_exact(description: RunDescription, L: int = 10, realizations: 
     """
     from .exact import MAX_DENSE_L, exact_otoc
 
-    _check_small(description, L, realizations, MAX_DENSE_L, "for the exact check (dense exact evolution holds 4^L numbers "
-                 "per operator)")
+    _check_small(description, L, realizations, MAX_DENSE_L, "for the exact check (dense exact evolution holds 4^L "
+                 "numbers per operator)")
     site = description.site_at(L)
     times = description.times
     worst = {"max_deviation": -1.0}
@@ -212,10 +212,10 @@ def converge(description: RunDescription, chis: Sequence[int], out, *, dt: float
              probe: str | None = None, tol: float = 1e-2, rel_tol: float = 0.0, **run_kwargs) -> dict:
     """Run the description at each bond dimension into ``out/chi_016`` ... and store the convergence arrays.
 
-    Every chi uses the same seeds (identical disorder). The OTOCs of ``probe`` (default: Z if stored, else the first stored probe)
-    go to :func:`mpo_fronts.trust.bond_convergence` (with ``tol`` and ``rel_tol``), whose result is written to
-    ``out/convergence.h5``;
-    ``mpo_fronts.load(out)`` then loads the largest chi with ``.convergence`` attached.
+    Every chi uses the same seeds (identical disorder). The OTOCs of ``probe`` (default: Z if stored, else the
+    first stored probe) go to :func:`mpo_fronts.trust.bond_convergence` (with ``tol`` and ``rel_tol``), whose
+    result is written to ``out/convergence.h5``; ``mpo_fronts.load(out)`` then loads the largest chi with
+    ``.convergence`` attached.
 
     Returns
     -------
@@ -231,10 +231,11 @@ def converge(description: RunDescription, chis: Sequence[int], out, *, dt: float
     probe = probe or default_probe(description.probes)
     if probe not in description.probes and description.state_kind != "infinite_temperature":
         raise InputError(f"probe {probe!r} is not stored by the description (operators.v = "
-                         f"{list(description.probes)})")
+                         f"{list(description.probes)})", arg="probe")
     out = Path(out)
     if (out / RUN_FILE).is_file():
-        raise InputError(f"{out} is a run directory; give converge a new directory (it creates chi_* inside)")
+        raise InputError(f"{out} is a run directory; give converge a new directory (it creates chi_* inside)",
+                         arg="out")
     descs = {chi: description.replace(engine__chi=chi, **({"engine__dt": dt} if dt is not None else {}))
              for chi in chis}
     for chi, d in descs.items():  # check every target before any work starts
