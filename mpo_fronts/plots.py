@@ -110,8 +110,12 @@ def _finish(fig, own: bool, ax, suptitle: str, handles=None, ncols: int = 4) -> 
     if handles:
         ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.16), ncols=min(len(handles), 2),
                   fontsize=7, frameon=False)
+    import textwrap
+
+    # one Axes is narrower than a figure: wrap what a suptitle says on one line (about 64 characters at 8 pt)
+    text = "\n".join(textwrap.fill(line, 64) for line in suptitle.split("\n"))
     title = ax.get_title()
-    ax.set_title(f"{title}\n{suptitle}" if title else suptitle, fontsize=8)
+    ax.set_title(f"{title}\n{text}" if title else text, fontsize=8)
 
 
 def _log_edges(t: np.ndarray) -> np.ndarray:
@@ -651,10 +655,11 @@ def plot_entropy(ens, threshold: float = 0.5, probe: str = "Z", *, use_trust: bo
     vmax = max(float(np.nanmax(S)) if S.size else 0.0, 1e-12)
     mesh = sx.pcolormesh(be, te, S, cmap="viridis", vmin=0.0, vmax=vmax, shading="flat", rasterized=True)
     cb = fig.colorbar(mesh, ax=sx)
-    chi = (getattr(ens, "engine", None) or {}).get("chi")
+    # the evolution settings: ``evolution`` from 0.2 on, ``engine`` before (and in duck-typed ensembles)
+    chi = (getattr(ens, "evolution", None) or getattr(ens, "engine", None) or {}).get("chi")
     chi = int(chi) if isinstance(chi, (int, np.integer, float)) and chi and chi > 1 else None
     label = f"operator entanglement entropy S_b (nats)\nmean over {R} realization(s)"
-    if chi:
+    if chi:  # S_b <= ln chi for Schmidt rank <= chi (common practice): the ceiling the truncation imposes
         lnchi = float(np.log(chi))
         label += f"; white line: ln chi = {lnchi:.3g}" if lnchi <= vmax else f"; ln chi = {lnchi:.3g} (chi = {chi})"
         if lnchi <= vmax:
@@ -672,7 +677,7 @@ def plot_entropy(ens, threshold: float = 0.5, probe: str = "Z", *, use_trust: bo
     _bond_mesh_axes(sx, t, nb, site)
     if own:  # the time axis is shared with the C panel
         sx.set_ylabel("")
-    sx.set_title(f"entanglement of W(t) across each bond, mean over {R} realization(s)", fontsize=9, pad=9)
+    sx.set_title(f"entanglement of W(t) across each bond,\nmean over {R} realization(s)", fontsize=9, pad=9)
     _finish(fig, own, cx, f"{_C_LABEL} (left) and operator entanglement entropy of W(t) (right); "
             f"trust: {info['source']}", handles)
     return fig

@@ -301,6 +301,10 @@ def test_entropy_figure_draws_the_stored_mean_beside_the_otoc_map(tiny_run, tmp_
     labels = [a.get_ylabel() for a in fig.axes]
     assert any("entropy S_b (nats)" in lab and "mean over 2" in lab for lab in labels)  # the colour bar
     assert "operator entanglement entropy" in fig._suptitle.get_text()
+    legend = [t.get_text() for t in fig.legends[0].get_texts()]
+    # chi = 4: the middle bonds come within 0.95 ln 4 of their ceiling by t = 2, so the contour is drawn
+    assert "mean S_b = 0.95 ln chi (trust: bond saturated)" in legend
+    assert "W at site i = 2 (between bonds 1 and 2)" in legend
     paths = plots.write_figures(ens, tmp_path, only=["entropy", "discarded"], formats=("png",))
     assert [p.name for p in paths] == ["entropy.png", "discarded.png"] and not paths.skipped
     assert all(p.stat().st_size > 2000 for p in paths)
