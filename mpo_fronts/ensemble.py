@@ -2,11 +2,12 @@
 
 One realization is computed by :func:`compute_realization`: claim it in the run directory, rebuild its chain
 from the description (:meth:`mpo_fronts.config.RunDescription.realization`; the seed scheme makes it
-independent of where and when it runs), resume from its checkpoint if there is one, evolve W(t) with
-:class:`mpo_fronts.evolve.OperatorTEBD`, read out every requested time, write the result atomically, release the
-claim. Every executor runs exactly this function, with one BLAS thread per process, so serial runs, local
-processes, Dask workers and shards give identical arrays. The run directory, not the scheduler, is the record
-of what is done: rerunning computes only what is missing.
+independent of where and when it runs), resume from its checkpoint if there is one, evolve W(t) through
+:func:`mpo_fronts.driver.evolve` (with the engine that ``evolution.symmetry`` selects,
+:class:`mpo_fronts.evolve.OperatorTEBD` or :class:`mpo_fronts.u1.ChargeTEBD`), read out every requested time,
+write the result atomically, release the claim. Every executor runs exactly this function, with one BLAS thread
+per process, so serial runs, local processes, Dask workers and shards give identical arrays. The run directory,
+not the scheduler, is the record of what is done: rerunning computes only what is missing.
 
 Executors
 ---------

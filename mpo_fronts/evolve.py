@@ -51,9 +51,8 @@ def keep_freed_memory() -> bool:
 
     Every gate allocates fresh temporaries of a few MiB (the two-site matrix, the gated matrix, SVD factors).
     By default glibc hands allocations above 128 KiB out as new mmap pages and returns them on free, so every
-    gate pays page faults on first touch; on virtual machines these are slow (on this project's machine they
-    made the gate application 2x slower and the Z2-graded engine 1.17x slower end to end at chi = 64,
-    ``scripts/bench_memory.py``). Raising
+    gate pays page faults on first touch; on virtual machines these are slow (measured by
+    ``scripts/bench_memory.py``, data/benchmarks/memory.json). Raising
     the mmap and trim thresholds keeps that memory in the heap; results are bit-identical. The process then keeps
     up to 256 MiB of freed memory. Set ``MPO_FRONTS_KEEP_MEMORY=0`` to leave the allocator alone; a no-op
     where the C library is not glibc.
