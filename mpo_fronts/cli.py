@@ -232,7 +232,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("plot", help="write the figures of a run",
                        description="Write the figures of a finished run (heat map, distribution, light cone, "
-                       "convergence, front, growth) as files into FIGDIR.")
+                       "convergence, front, growth, bond entropy, discarded weight per bond) as files into FIGDIR.")
     p.add_argument("directory", metavar="DIR", help="run directory, merged file or convergence study")
     p.add_argument("--out", "-o", required=True, metavar="FIGDIR", help="folder for the figures (required)")
     p.add_argument("--only", default=None, metavar="NAME",

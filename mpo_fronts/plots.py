@@ -10,9 +10,11 @@ Every ``plot_*`` function also draws into Axes the caller made (``ax=``): one Ax
 sequence of 2 n, density panels first) for ``distribution`` with n sites. It then returns the figure those Axes
 belong to (``ax.figure``), so the return value is always the Figure drawn into, and it leaves that figure's
 suptitle and legends alone: what the own figure says in its suptitle goes into the title of the first Axes, and
-a figure legend becomes a legend below the first Axes. With ``ax=None`` each function makes its own figure. Colour maps are perceptually uniform
-and stay ordered in greyscale (cividis for C, viridis for densities); lines also differ by style and marker,
-so every figure reads in black and white.
+a figure legend becomes a legend below the first Axes. With ``ax=None`` each function makes its own figure.
+
+Colour maps are perceptually uniform and stay ordered in greyscale (cividis for C, viridis for densities and
+entropies, reversed magma for discarded weights); lines also differ by style and marker, so every figure reads
+in black and white.
 
 Figures (names for ``only``):
 
@@ -849,7 +851,10 @@ def write_figures(ens, outdir, only: str | Iterable[str] | None = None, threshol
 
     for name, why in skipped.items():
         if name != "convergence":  # convergence is optional by design; the per-bond data missing is worth a word
-            warnings.warn(f"figure {name!r} skipped: {why}", FigureSkipped, stacklevel=2)
+            # explicit location: printed as one line ("write_figures:0: FigureSkipped: ..."), with no source line
+            # under it, also when the CLI is the caller
+            warnings.warn_explicit(f"figure {name!r} skipped: {why}", FigureSkipped, "write_figures", 0,
+                                   module=__name__)
     lc = None
     written = FigureFiles(skipped=skipped)
     for name in names:

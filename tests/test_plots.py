@@ -361,3 +361,13 @@ def test_old_files_without_bond_datasets_skip_those_figures(tiny_run, tmp_path):
     # a duck-typed ensemble whose per-bond attributes are None
     with pytest.raises(InputError, match="'entropy' figure needs per-bond data"):
         plots.plot_entropy(synthetic_ensemble(bonds=False))
+
+
+def test_cli_plot_only_knows_the_new_figures(tiny_run, tmp_path, capsys):
+    from mpo_fronts.cli import main
+
+    assert main(["plot", str(tiny_run), "--out", str(tmp_path / "f"), "--only", "entropy,discarded"]) == 0
+    assert sorted(p.name for p in (tmp_path / "f").iterdir()) == ["discarded.pdf", "discarded.png", "entropy.pdf",
+                                                                  "entropy.png"]
+    assert main(["plot", str(tiny_run), "--out", str(tmp_path / "g"), "--only", "entropie"]) == 2
+    assert "did you mean 'entropy'" in capsys.readouterr().err
