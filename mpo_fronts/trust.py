@@ -35,8 +35,9 @@ Crossing times -- the error budget
     added in quadrature to the statistical interval over realizations (bootstrap percentiles) inside
     :func:`mpo_fronts.analysis.light_cone`, which also propagates all of them into v_B and xi. A crossing is
     *trusted* (fitted) when it rests on trusted points (the ``max_lost`` rule always; the point mask without
-    a study), its interval is finite and its truncation plus Trotter error is at most ``tstar_tol``
-    (default 5 %) of t*.
+    a study), its interval is finite, its truncation plus Trotter error is at most ``tstar_tol``
+    (default 5 %) of t*, and it does not lie before the first positive output time of a grid that starts at
+    t = 0 (there the interval runs from the linear crossing to that time: any power law fits).
 
 :func:`interval_coverage` measures how often those intervals contain exact crossing times (the tests run it
 on dense exact evolution at L = 8-10; scripts/coverage.py at L = 10-12). The functions work on arrays;
@@ -441,7 +442,12 @@ def _shift_offsets(t: np.ndarray, curve: np.ndarray, theta: float, ts: np.ndarra
 
 
 def _interpolation_error(t: np.ndarray, curve: np.ndarray, theta: float, ts: np.ndarray) -> np.ndarray:
-    """|t* (linear in ln t) - t* (power law between the same output times)|, symmetric, (2, n_d)."""
+    """|t* (linear in ln t) - t* (power law between the same output times)|, symmetric, (2, n_d).
+
+    A crossing in a first interval that starts at t = 0 is not resolved by the output times: any growth
+    C = C(t1) (t / t1)^p with p >= 1 fits the two points, and its crossing lies anywhere between the linear one
+    (p = 1, what :func:`~mpo_fronts.analysis.crossing_times` returns there) and t1, so the error is t1 - t*.
+    """
     above = np.nan_to_num(curve, nan=-np.inf) >= theta
     k = np.argmax(above, axis=0)
     km = np.maximum(k - 1, 0)
@@ -452,6 +458,8 @@ def _interpolation_error(t: np.ndarray, curve: np.ndarray, theta: float, ts: np.
         frac = (np.log(theta) - np.log(c0)) / (np.log(c1) - np.log(c0))
         alt = np.exp(np.log(t0) + np.clip(frac, 0, 1) * (np.log(t1) - np.log(t0)))
     err = np.where(good, np.abs(alt - ts), 0.0)
+    from_zero = (k > 0) & (t0 == 0)  # the crossing lies in [0, t1]
+    err = np.where(from_zero, np.maximum(t1 - ts, 0.0), err)
     return np.where(np.isfinite(ts), np.stack([err, err]), np.nan)
 
 
@@ -552,9 +560,15 @@ def crossing_errors(times, curve_values, threshold: float, truncation_dC=None, t
     interp = _interpolation_error(t, c, theta, ts)
     total = parts["truncation"] + parts["trotter"] + interp
     model = parts["truncation"] + parts["trotter"]
+    # a crossing before the first positive output time of a grid that starts at t = 0 is not resolved
+    unresolved = np.isfinite(ts) & (t[0] == 0) & (t.size > 1) & (ts < (t[1] if t.size > 1 else np.inf))
     with np.errstate(invalid="ignore"):
-        trusted = np.isfinite(ts) & np.isfinite(total).all(axis=0) & (model.max(axis=0) <= tstar_tol * ts)
+        trusted = (np.isfinite(ts) & np.isfinite(total).all(axis=0) & (model.max(axis=0) <= tstar_tol * ts)
+                   & ~unresolved)
     notes = []
+    if unresolved.any():
+        notes.append(f"{int(unresolved.sum())} crossing(s) before the first positive output time t = {t[1]:g} "
+                     "are not resolved by the time grid and not trusted")
     if trotter_dC is None:
         notes.append("Trotter error not included (no run at a second time step)")
     return CrossingErrors(d=np.arange(c.shape[1]), tstar=ts, truncation=parts["truncation"],

@@ -238,3 +238,22 @@ def test_interval_coverage_against_dense_exact_evolution(model):
     assert coverage >= 0.9
     assert share >= 0.6
     assert np.median(widths) <= tr.DEFAULT_TSTAR_TOL  # the intervals are informative, not merely wide
+
+
+def test_a_crossing_before_the_first_positive_output_time_is_not_trusted():
+    # C = t^4 (the lowest-order growth t^(2d) at d = 2, common practice) on a grid that starts at t = 0: theta =
+    # 0.01 is crossed at t* = 0.01^(1/4) = 0.316, inside [0, 0.5]; the two points (0, 0) and (0.5, 0.0625) are
+    # fitted by any power law t^p, p >= 1, so the interval must reach from the linear crossing to 0.5 and
+    # contain the true t*, and the crossing must not be fitted.
+    t = np.concatenate([[0.0], np.geomspace(0.5, 4.0, 8)])
+    C = (t ** 4)[:, None] * np.array([1.0, 1e-3])[None, :]  # the second column crosses later, between t > 0
+    err = tr.crossing_errors(t, C, 0.01, np.zeros(C.shape), None)
+    lin = 0.5 * 0.01 / 0.5 ** 4
+    np.testing.assert_allclose(err.tstar[0], lin, rtol=1e-12)
+    np.testing.assert_allclose(err.interpolation[:, 0], 0.5 - lin, rtol=1e-12)
+    assert err.tstar[0] - err.interpolation[0, 0] <= 0.01 ** 0.25 <= err.tstar[0] + err.interpolation[1, 0]
+    assert not err.trusted[0]
+    assert any("not resolved" in n for n in err.notes)
+    # the second column, 1e-3 t^4, crosses 0.01 at 10^(1/4) = 1.78, between positive output times: the usual
+    # power-law estimate, and trusted (no truncation error given)
+    assert 1.0 < err.tstar[1] < 2.0 and err.interpolation[0, 1] < 0.05 * err.tstar[1] and err.trusted[1]
