@@ -142,19 +142,32 @@ class Ensemble:
         return self._cache[name]
 
     # ---------------------------------------------------------------- arrays
-    def otoc(self, v: str = "Z") -> np.ndarray:
-        """C(r, t) with probe v, shape (R, n_t, L) (the mean over basis states for product-state runs)."""
+    def otoc(self, v: str = "Z", estimator: str = "normalized") -> np.ndarray:
+        """C(r, t) with probe v, shape (R, n_t, L) (the mean over basis states for product-state runs).
+
+        ``estimator='saturated'`` applies :func:`mpo_fronts.readout.estimate_otoc` to every realization (the
+        discarded weight counted as scrambled where the kept profile has saturated; infinite temperature only);
+        the default is C as stored.
+        """
+        from .readout import ESTIMATORS, estimate_otoc, otoc_from_weights
+
         if not isinstance(v, str) or v.upper() not in ("X", "Y", "Z"):
             raise InputError(f"probe v must be one of 'X', 'Y', 'Z', got {v!r}")
+        if estimator not in ESTIMATORS:
+            raise InputError(f"estimator must be one of {', '.join(map(repr, ESTIMATORS))}, got {estimator!r}",
+                             arg="estimator")
+        if estimator != "normalized" and self.state_kind != "infinite_temperature":
+            raise InputError("estimator='saturated' is defined for infinite temperature only; this run is "
+                             f"{self.state_kind!r}", arg="estimator")
         v = v.upper()
         if v not in self.probes:
-            if self.state_kind == "infinite_temperature":
-                from .readout import otoc_from_weights
-
-                return otoc_from_weights(self.weights, v)
-            raise InputError(f"probe {v!r} was not stored; this run stores {', '.join(self.probes)} "
-                             "(operators.v of the description)")
-        return self._get(f"otoc/{v}")
+            if self.state_kind != "infinite_temperature":
+                raise InputError(f"probe {v!r} was not stored; this run stores {', '.join(self.probes)} "
+                                 "(operators.v of the description)")
+            C = otoc_from_weights(self.weights, v)
+        else:
+            C = self._get(f"otoc/{v}")
+        return C if estimator == "normalized" else estimate_otoc(C, self.discarded_weight, estimator)
 
     def state_otoc(self, v: str = "Z") -> np.ndarray:
         """Product-state OTOCs of each basis state, shape (R, samples, n_t, L) (product-state runs only)."""

@@ -58,3 +58,28 @@ def test_estimator_errors():
     st = mf.evolve_otoc(chain, "Z", 0, [0.5, 1.0], chi=8, dt=0.1, state="010101")
     with pytest.raises(InputError, match="infinite temperature"):
         st.otoc("Z", "saturated")
+
+
+def test_ensemble_otoc_saturated_equals_the_per_realization_formula(tmp_path):
+    from mpo_fronts.readout import otoc_from_weights
+
+    from mpo_fronts.config import parse_description
+    from mpo_fronts.ensemble import run_ensemble
+
+    desc = parse_description({"model": {"kind": "xxz", "L": 8, "W": 0.5},
+                              "operators": {"w": "Z", "site": 0, "v": ["Z"]},
+                              "times": {"values": [1.0, 2.0, 3.0, 4.0]}, "evolution": {"chi": 4, "dt": 0.1},
+                              "ensemble": {"realizations": 2, "seed": 3}})
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # large discarded weight at chi 4: the point of the test
+        run_ensemble(desc, tmp_path / "out")
+    ens = mf.load(tmp_path / "out")
+    got = ens.otoc("Z", estimator="saturated")
+    assert ens.discarded_weight[:, -1].min() > 0
+    for k in range(len(ens)):
+        np.testing.assert_allclose(got[k], estimate_otoc(ens.otoc("Z")[k], ens.discarded_weight[k], "saturated"))
+    # X is not stored: read from the weights, then corrected the same way
+    np.testing.assert_allclose(ens.otoc("X", "saturated"),
+                               estimate_otoc(otoc_from_weights(ens.weights, "X"), ens.discarded_weight, "saturated"))
+    with pytest.raises(InputError, match="estimator"):
+        ens.otoc("Z", estimator="sat")
