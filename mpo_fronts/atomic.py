@@ -10,10 +10,10 @@ import uuid
 from pathlib import Path
 from typing import Any, Callable
 
-__all__ = ["atomic_h5"]
+__all__ = ["atomic_h5", "atomic_text", "tmp_name", "to_json", "package_info"]
 
 
-def _package_info() -> tuple[str, str]:
+def package_info() -> tuple[str, str]:
     from .conventions import CONVENTIONS, __version__
 
     return __version__, CONVENTIONS
@@ -33,7 +33,7 @@ def _fsync_dir(path: Path) -> None:
         os.close(fd)
 
 
-def _tmp_name(path: Path) -> Path:
+def tmp_name(path: Path) -> Path:
     return path.with_name(f".{path.name}.{os.getpid()}.{uuid.uuid4().hex[:8]}.tmp")
 
 
@@ -42,7 +42,7 @@ def _atomic_replace(path: Path, write_tmp: Callable[[Path], None]) -> Path:
 
     A killed process leaves at most a stray temporary file, never a half-written ``path``.
     """
-    tmp = _tmp_name(path)
+    tmp = tmp_name(path)
     try:
         write_tmp(tmp)
         with open(tmp, "rb") as fh:
@@ -68,9 +68,9 @@ def atomic_h5(path, write: Callable[[Any], None]) -> Path:
     return _atomic_replace(Path(path), write_tmp)
 
 
-def _atomic_text(path: Path, text: str) -> None:
+def atomic_text(path: Path, text: str) -> None:
     _atomic_replace(path, lambda tmp: tmp.write_text(text))
 
 
-def _json(obj) -> str:
+def to_json(obj) -> str:
     return json.dumps(obj, sort_keys=True, allow_nan=False)

@@ -32,7 +32,7 @@ from .evolve import check_site, check_w as _check_w
 from .schedules import DEFAULT_CHUNK, ORDERS, block_layers, step_plan
 from .schedules import check_times as _check_times
 from .models import Chain
-from .readout import PROBES, OtocResult, _check_probe, check_bits, otoc_from_weights
+from .readout import PROBES, OtocResult, check_bits, check_probe
 
 __all__ = ["exact_otoc", "eigenstate_otoc", "free_fermion_otoc", "typicality_otoc", "TypicalityResult",
            "sparse_hamiltonian", "apply_pauli", "MAX_DENSE_L", "MAX_SPARSE_L"]
@@ -330,7 +330,7 @@ def eigenstate_otoc(chain: Chain, w: str = "Z", site=0, v: str = "Z", times: Seq
     """
     chain, w, site, ts = _check_request(chain, "eigenstate_otoc", MAX_DENSE_L, w, site, times)
     L = chain.L
-    v = _check_probe(v)
+    v = check_probe(v)
     spec = _Spectrum(chain)
     W_eig = spec.to_eigenbasis(w, site)
     A = [spec.phases(float(t)) * W_eig for t in ts]
@@ -613,7 +613,7 @@ def typicality_otoc(chain: Chain, w: str = "Z", site=0, v: str = "Z", times: Seq
     """
     chain, w, site, ts = _check_request(chain, "typicality_otoc", MAX_SPARSE_L, w, site, times)
     L = chain.L
-    v = _check_probe(v)
+    v = check_probe(v)
     if isinstance(n_states, bool) or not isinstance(n_states, (int, np.integer)) or n_states < 1:
         raise InputError(f"n_states (number of random states) must be a positive integer, got {n_states!r}")
     if probe_sites is None:

@@ -22,10 +22,10 @@ from .conventions import ANTICOMMUTES, PAULI, PROBES
 from .errors import InputError
 
 __all__ = ["OtocResult", "pauli_weights", "otoc_from_weights", "right_weights", "product_state_otoc",
-           "estimate_otoc", "ESTIMATORS", "ANTICOMMUTES", "PROBES", "check_bits"]
+           "estimate_otoc", "ESTIMATORS", "ANTICOMMUTES", "PROBES", "check_bits", "check_probe"]
 
 
-def _check_probe(v: str) -> str:
+def check_probe(v: str) -> str:
     if not isinstance(v, str) or v.upper() not in PROBES:
         raise InputError(f"probe v must be one of 'X', 'Y', 'Z', got {v!r}")
     return v.upper()
@@ -106,7 +106,7 @@ def pauli_weights(arrays: Sequence[np.ndarray], center: int | None = None,
 
 def otoc_from_weights(weights: np.ndarray, v: str) -> np.ndarray:
     """Infinite-temperature C(r, t) = 2 * sum of the weights of letters anticommuting with v (last axis)."""
-    v = _check_probe(v)
+    v = check_probe(v)
     return 2.0 * weights[..., ANTICOMMUTES[v]].sum(axis=-1)
 
 
@@ -131,10 +131,11 @@ def estimate_otoc(C, discarded_weight, estimator: str = "normalized") -> np.ndar
         C_sat(r, t) = C(r, t) (1 - eps(t)) + eps(t) C(r, t) / max_r' C(r', t).
 
     Why: truncation removes the most entangled, most scrambled part of W(t), so the normalised C is biased low
-    behind the front. Measured against exact references (``scripts/bench/accuracy.py``, README "What is and is
-    not trustworthy"), 'saturated' cut the median error behind the front 2-4.6x on every chain and chi measured. Ahead of the
-    front it multiplies C by 1 + eps (1 / max_r C - 1), which is 1 once the profile has saturated somewhere. It is a heuristic from those measurements,
-    not a bound: it never replaces the trust criteria. Infinite temperature only.
+    behind the front. Measured against exact references (``scripts/bench/accuracy.py``; the numbers are in the
+    README, "What is and is not trustworthy"), 'saturated' cut the median error behind the front on every chain
+    and chi of that study. Ahead of the front it multiplies C by 1 + eps (1 / max_r C - 1), which is 1 once the
+    profile has saturated somewhere. It is a heuristic from those measurements, not a bound: it never replaces
+    the trust criteria. Infinite temperature only.
     """
     estimator = _check_estimator(estimator)
     C = np.asarray(C, dtype=float)
@@ -195,7 +196,7 @@ def product_state_otoc(arrays: Sequence[np.ndarray], bits: str, v: str) -> np.nd
     W is divided by its Frobenius weight sum_S c_S^2 (1 before truncation), matching :func:`pauli_weights`.
     Cost: one left and one right sweep of complex transfer matrices, O(L chi^3).
     """
-    v = _check_probe(v)
+    v = check_probe(v)
     L = len(arrays)
     bits = check_bits(bits, L)
     sign = np.where(ANTICOMMUTES[v], -1.0, 1.0)
@@ -280,7 +281,7 @@ class OtocResult:
         ``estimator='saturated'`` gives :func:`estimate_otoc`'s correction for the discarded weight (infinite
         temperature only); the default is C as read from the truncated operator.
         """
-        v = _check_probe(v)
+        v = check_probe(v)
         estimator = _check_estimator(estimator)
         if self.state_otoc:
             if estimator != "normalized":

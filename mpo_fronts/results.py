@@ -10,7 +10,7 @@ from typing import Any, Iterable, Sequence
 
 import numpy as np
 
-from .atomic import _json, _package_info, atomic_h5
+from .atomic import to_json, package_info, atomic_h5
 from .config import parse_description
 from .errors import InputError, RunDirectoryError, require
 from .rundir import (CONVERGENCE_FILE, LETTER_AXIS, MERGED_FORMAT, OPTIONAL, RESULT_FORMAT, RUN_FILE, RunDirectory,
@@ -224,7 +224,7 @@ class Ensemble:
         })
         return xr.Dataset(data, coords={"realization": R, "time": self.times, "site": np.arange(self.L),
                                         "bond": np.arange(self.L - 1), "letter": list(LETTER_AXIS)},
-                          attrs={"description": _json(self.description), "evolution": _json(self.evolution),
+                          attrs={"description": to_json(self.description), "evolution": to_json(self.evolution),
                                  "version": str(self.version), "conventions": str(self.conventions),
                                  "w": self.w, "w_site": self.site})
 
@@ -236,7 +236,7 @@ class Ensemble:
                                     "overwrite=True; nothing was written", arg="overwrite")
         if len(self) == 0:
             raise InputError("nothing to merge: the run holds no finished realizations yet")
-        version, conventions = _package_info()
+        version, conventions = package_info()
         names = [f"otoc/{v}" for v in self.probes] + ["weights", "right_weight", "discarded_weight",
                                                       "max_bond", "fields", "couplings", "seed"]
         names += [n for n in OPTIONAL if self._optional(n) is not None]
@@ -247,10 +247,10 @@ class Ensemble:
             f.attrs["format"] = MERGED_FORMAT
             f.attrs["version"] = version
             f.attrs["conventions"] = conventions
-            f.attrs["description"] = _json(self.description)
+            f.attrs["description"] = to_json(self.description)
             f.attrs["fingerprint"] = self._desc.fingerprint()
-            f.attrs["evolution"] = _json(self.evolution)
-            f.attrs["source_versions"] = _json(sorted({str(x) for x in self.meta.get("versions", [self.version])}))
+            f.attrs["evolution"] = to_json(self.evolution)
+            f.attrs["source_versions"] = to_json(sorted({str(x) for x in self.meta.get("versions", [self.version])}))
             for name, data in (("times", self.times), ("realizations", self.realizations),
                                ("wall_time", self.wall_time), ("max_step", self._get("max_step"))):
                 describe_dataset(f.create_dataset(name, data=data), name, merged=True)
@@ -273,7 +273,7 @@ def write_convergence_group(g, conv: dict) -> None:
         elif arr.dtype.kind in "biuf":
             g.attrs[key] = arr[()]
         else:
-            g.attrs[key] = _json(value if not isinstance(value, np.ndarray) else value.tolist())
+            g.attrs[key] = to_json(value if not isinstance(value, np.ndarray) else value.tolist())
 
 
 def read_convergence_group(g) -> dict:

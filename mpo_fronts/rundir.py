@@ -18,7 +18,7 @@ from typing import Any, Callable, ClassVar
 
 import numpy as np
 
-from .atomic import _atomic_text, _json, _package_info, _tmp_name, atomic_h5
+from .atomic import atomic_text, to_json, package_info, tmp_name, atomic_h5
 from .config import RunDescription, parse_description
 from .errors import RunDirectoryError
 
@@ -84,7 +84,7 @@ class Claim:
         self._lock = lock
         self._stop = threading.Event()
         self.started = time.time()
-        tmp = _tmp_name(path)
+        tmp = tmp_name(path)
         self._fd = os.open(tmp, os.O_RDWR | os.O_CREAT | os.O_EXCL, 0o644)
         self._write()
         os.replace(tmp, path)  # the caller holds the directory lock
@@ -94,7 +94,7 @@ class Claim:
     SIZE = 512  # fixed-size content: one pwrite replaces it whole, so a reader never sees a mixture
 
     def _content(self) -> bytes:
-        text = _json({"k": self.k, "host": socket.gethostname(), "pid": os.getpid(), "run_id": self.run_id,
+        text = to_json({"k": self.k, "host": socket.gethostname(), "pid": os.getpid(), "run_id": self.run_id,
                       "started": self.started, "t": self.t, "t_final": self.t_final})
         return (text.ljust(self.SIZE - 1) + "\n").encode()
 
@@ -228,14 +228,14 @@ class RunDirectory:
     def _write_run_file(self, description: RunDescription) -> None:
         """Write run.json (first of all files), or keep the stored one if it already has more realizations."""
         p = self.path
-        version, conventions = _package_info()
+        version, conventions = package_info()
         if (p / RUN_FILE).is_file():
             stored = parse_description(self.read_run_file(p)["description"])
             if description.realizations <= stored.realizations:
                 # keep the stored (larger) count; this session's [run] options apply
                 self.description = description.replace(ensemble__realizations=stored.realizations)
                 return
-        _atomic_text(p / RUN_FILE, json.dumps({
+        atomic_text(p / RUN_FILE, json.dumps({
             "format": "mpo_fronts.run/1", "version": version, "conventions": conventions,
             "fingerprint": description.fingerprint(), "description": description.to_dict(),
             "source": description.source}, indent=1, sort_keys=True) + "\n")
@@ -312,16 +312,16 @@ class RunDirectory:
     def write_result(self, k: int, result: dict) -> Path:
         """Write realization k atomically (see the module doc for the contents)."""
         desc = self.description
-        version, conventions = _package_info()
+        version, conventions = package_info()
 
         def write(f):
             f.attrs["format"] = RESULT_FORMAT
             f.attrs["version"] = version
             f.attrs["conventions"] = conventions
-            f.attrs["description"] = _json(desc.to_dict())
+            f.attrs["description"] = to_json(desc.to_dict())
             f.attrs["fingerprint"] = desc.fingerprint()
             f.attrs["realization"] = k
-            f.attrs["evolution"] = _json(result["engine"])  # evolution settings ("engine" before 0.2)
+            f.attrs["evolution"] = to_json(result["engine"])  # evolution settings ("engine" before 0.2)
             f.attrs["wall_time"] = result["wall_time"]
             f.attrs["restarts"] = result.get("restarts", 0)
             f.attrs["host"] = socket.gethostname()

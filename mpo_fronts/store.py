@@ -38,10 +38,11 @@ The code lives in three modules, re-exported here: :mod:`mpo_fronts.atomic` (ato
 from __future__ import annotations
 
 from .atomic import atomic_h5
-from .results import Ensemble, _write_convergence_group, convergence_runs, load, merge, read_convergence  # noqa: F401
+from .results import (Ensemble, _write_convergence_group, convergence_runs, load, merge,  # noqa: F401
+                      read_convergence, write_convergence_group)
 from .rundir import (CHECKPOINT_FORMAT, CONVERGENCE_FILE, DATASETS, MERGED_FORMAT, RESULT_FORMAT,  # noqa: F401
-                     RUN_FILE, Claim, ClaimInfo, RunDirectory, run_status)
+                     RUN_FILE, Claim, ClaimInfo, RunDirectory, RunStatus, run_status)
 
 __all__ = ["RunDirectory", "Claim", "ClaimInfo", "Ensemble", "load", "merge", "run_status", "atomic_h5",
            "RUN_FILE", "RESULT_FORMAT", "MERGED_FORMAT", "CONVERGENCE_FILE", "DATASETS", "convergence_runs",
-           "read_convergence"]
+           "read_convergence", "write_convergence_group", "RunStatus"]
