@@ -169,7 +169,7 @@ def _blocks(theta, row_par, col_par):
     for p in (0, 1):
         r, c = np.flatnonzero(row_par == p), np.flatnonzero(col_par == p)
         if r.size and c.size:
-            out.append((p, r, c, theta.take(r, axis=0).take(c, axis=1)))  # take: 2x faster than ix_
+            out.append((p, r, c, theta.take(r, axis=0).take(c, axis=1)))  # take: cheaper than ix_ here
     return out
 
 
@@ -195,7 +195,7 @@ def _split_svd(blocks, chi, cutoff, to_right, randomized=False, svd=None):
 
 def rsvd_samples(shape, chi: int) -> bool:
     """Whether the randomized route samples a block of this shape (both sides >= 2 (chi + RSVD_OVERSAMPLE));
-    smaller blocks take the SVD, which is faster there (measured crossover about 2-2.5x the sample size)."""
+    smaller blocks take the SVD, which is faster there (the crossover was measured; see the README, Performance)."""
     return min(shape) >= 2 * (chi + RSVD_OVERSAMPLE)
 
 
@@ -223,7 +223,7 @@ def _rsvd(m: np.ndarray, l: int):
     Omega for a Gaussian Omega (n, l), then ``RSVD_POWER`` times Y = m basis(m^T basis(Y)), every product
     re-based so that small singular values are not lost to rounding as in plain powers (m m^T)^q m Omega. The
     intermediate bases are the unit lower-trapezoidal LU factors with partial pivoting (same column space, well
-    conditioned, 4x cheaper than a QR at 512 x 144; LU re-basing as in Li et al., ACM TOMS 43, 28 (2017),
+    conditioned, cheaper than a QR; LU re-basing as in Li et al., ACM TOMS 43, 28 (2017),
     "Algorithm 971", cited from memory), the last one a QR, Q = orth(Y); then the exact SVD of the small
     projection B = Q^T m = u s vt. Returns ``Q u, s, vt, rest`` with rest = |m|^2 - |B|^2, the weight of m
     outside span(Q), which the truncation adds to the discarded weight: |m - Q u_k s_k vt_k|^2 = rest +
