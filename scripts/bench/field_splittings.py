@@ -23,19 +23,26 @@ Families (the source of each splitting is named beside its coefficients):
     omega_ij the field-energy difference of its matrix element: the flip-flop amplitude times
     sin(w tau/2)/(w tau/2), w = h_i - h_{i+1}), time-independent and the same for every step; it is split
     Strang-wise into even and odd bonds. The step is symmetric (S(-tau) = S(tau)^-1), so it is second order,
-    and symmetric compositions of it (Suzuki, Yoshida) are fourth order.
+    and symmetric compositions of it (Suzuki, Yoshida) are fourth order. ``ip/exact_bond*`` replaces the
+    first Magnus term of each bond by the exact propagator of that bond alone in the interaction picture
+    (i log of e^{iF_b tau/2} e^{-i(K_b + F_b) tau} e^{iF_b tau/2}), so that an isolated bond is exact as in the
+    brickwork; the cross-bond terms are still split.
 
 Cost: the number of two-site-gate layers per step, counted as the engine counts them (consecutive layers of
 one parity merged across steps). One-site rotations cost nothing: for even L the even bonds cover every site,
-so any run of E and F factors is one layer of two-site gates, and fields between odd layers commute with the
-end sites' absence from the odd layer, so they merge into the odd (or next even) layer.
+so any run of E and F factors is one layer of two-site gates; in a run of O and F factors the fields of the
+sites the odd bonds cover go into the odd gates, and those of the two end sites commute with the odd layer
+and move into the neighbouring even layer.
 
 Reported per scheme and W: the fitted A of max |dC| <= A dt^p t (p the nominal order, A the largest over seeds
 and times at the smallest step), the error ratio when dt halves (twice; 2^p in the asymptotic regime), the
 error at equal cost (40 and 80 layers per unit time), the step that meets |dC| <= 1e-3 up to t = 1000 by the
 rule of ``stepsize.auto_dt`` (dt = (tol / (SAFETY A t_final))^(1/p), within DT_RANGE, A from the L = 8 fit
 here for every scheme alike) with the error measured there on L = 8 up to t = 1000, and the simulated time
-per two-site-gate layer at that step relative to Blanes-Moan (today's dt = "auto" default). Writes
+per two-site-gate layer at that step relative to Blanes-Moan (today's dt = "auto" default). Supplements: the
+same at W = 20 and 40 for a few schemes (``large_W_rows``), the order-2 constant A against W (``w_scan``),
+the one-step operator-norm error on L = 4 (``local_error_L4``), and Blanes-Moan with each interior field
+given to its even gate with weight alpha instead of 1/2 (``alpha_scan``, zero cost). Writes
 data/benchmarks/field_splittings.json and prints tables.
 """
 
@@ -215,6 +222,8 @@ _add("ip/magnus2", "c", 2, "interaction picture (common practice), first Magnus 
      lambda P, tau: ip2(P, tau), ["F", "E", "O", "E", "F"])
 _add("ip/exact_bond2", "c", 2, "interaction picture (common practice), each bond's own propagator exact, "
      "Strang 1968", lambda P, tau: ip2(P, tau, exact_bonds=True), ["F", "E", "O", "E", "F"])
+_add("ip/exact_bond_suzuki5", "c", 4, "Suzuki 1990 five-stage composition of ip/exact_bond2",
+     lambda P, tau: compose(lambda s: ip2(P, s, exact_bonds=True), SUZUKI5, tau), ["F", "E", "O", "E", "F"] * 5)
 _add("ip/suzuki5", "c", 4, "Suzuki 1990 five-stage composition of ip/magnus2",
      lambda P, tau: compose(lambda s: ip2(P, s), SUZUKI5, tau), ["F", "E", "O", "E", "F"] * 5)
 _add("ip/yoshida3", "c", 4, "Yoshida 1990 triple jump of ip/magnus2 (from memory)",
@@ -420,7 +429,8 @@ def main() -> None:
     ap.add_argument("--schemes", nargs="*", default=None, help="subset of scheme names")
     args = ap.parse_args()
     selfcheck = check_dense_route()
-    print(f"self-check (Schur route = stepsize.trotter_otoc; ip/magnus2 at W = 0 = Strang): {selfcheck:.1e}")
+    print(f"self-check (fast OTOC = stepsize.trotter_otoc and exact_window_otoc; ip/magnus2 at W = 0 = Strang; "
+          f"ip/exact_bond2 exact on one bond): {selfcheck:.1e}")
     assert selfcheck < 1e-10
     names = args.schemes or list(SCHEMES)
     Ws, seeds = ((6.0,), (1,)) if args.quick else ((2.0, 6.0, 10.0), (1, 2, 3))
@@ -432,7 +442,12 @@ def main() -> None:
     print(table(rows, cols))
     if args.quick or args.schemes:
         return
-    extra = scans(seeds)
+    big = ["brick/standard2", "brick/blanes_moan4", "ip/exact_bond2", "ip/exact_bond_suzuki5"]
+    large = measure(big, (20.0, 40.0), seeds)
+    print(table(large, cols))
+    for r in large:
+        r.pop("seconds", None)
+    extra = {"large_W_rows": large, **scans(seeds)}
     for r in rows:
         r.pop("seconds", None)
     write_json("field_splittings", {
