@@ -377,7 +377,7 @@ def _make_dask_client(spec: str):
         return distributed.Client(arg, timeout="15s"), None
     except (OSError, TimeoutError) as exc:
         raise UserError(f"cannot reach the Dask scheduler at {arg} ({exc}); start one with 'dask scheduler' "
-                        "and workers with 'dask worker ADDRESS', or use --dask local:N") from None
+                        "and workers with 'dask worker ADDRESS', or use a local cluster, 'local:N'") from None
 
 
 def run_ensemble(description: RunDescription, out, *, workers: int = 1, dask: str | None = None,
@@ -424,11 +424,11 @@ def run_ensemble(description: RunDescription, out, *, workers: int = 1, dask: st
     if not isinstance(description, RunDescription):
         raise InputError("description must be a RunDescription (use mpo_fronts.config.read_description)")
     if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
-        raise InputError(f"workers must be a positive integer, got {workers!r}")
+        raise InputError(f"workers must be a positive integer, got {workers!r}", arg="workers")
     if dask is not None:
         parse_dask(dask)
         if workers > 1:
-            raise InputError("give either --workers N (local processes) or --dask SPEC, not both")
+            raise InputError("give either workers > 1 (local processes) or dask (a scheduler), not both", arg="workers")
     if progress not in ("auto", "bar", "log", "none"):
         raise InputError(f"progress must be 'auto', 'bar', 'log' or 'none', got {progress!r}")
     selected = shard_indices(description.realizations, shard)
