@@ -9,7 +9,11 @@ Accuracy is matched on the Trotter error alone (truncation is the same at equal 
 exact references, not here): for every splitting, the step that keeps the estimated Trotter error of C below
 ``--tol`` up to ``--t-final`` comes from :func:`mpo_fronts.stepsize.auto_dt` (fitted on a 6-site window; the
 estimate is tested against dense exact evolution in tests/test_stepsize.py). The old commit offers Strang
-(order 2) and Suzuki (order 4) only; this tree adds Blanes-Moan (order 4), the dt = "auto" default.
+(order 2) and Suzuki (order 4) only; this tree adds Blanes-Moan (order 4), the dt = "auto" default, and the
+U(1) charge-block engine (``symmetry = "u1"``, :class:`mpo_fronts.u1.ChargeTEBD`), which ``symmetry = "auto"``
+picks with dt = "auto" on this chain (S^z-conserving, W = Z). The rows "dt = auto" run the step that
+dt = "auto" resolves to for ``--t-final`` (given as that number, since the timed run stops at ``--t-bench``),
+with the Z2 engine and with the U(1) engine; the headline ratio is the U(1) row's.
 
 Timing: each configuration evolves from t = 0 to ``--t-bench`` on one BLAS thread, the old commit in a
 subprocess importing a temporary git worktree of f35581a, this tree in a subprocess too (same conditions).
@@ -29,6 +33,8 @@ import sys
 import tempfile
 import time
 from pathlib import Path
+
+import numpy as np
 
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 os.environ.setdefault("OMP_NUM_THREADS", "1")
@@ -52,18 +58,21 @@ mf.evolve_otoc(mf.xxz_chain(8, W=1.0, seed=1), "Z", 4, [0.2], chi=8, dt=0.1)  # 
 kw = dict(order={order})
 if {splitting!r} != "standard":
     kw["splitting"] = {splitting!r}
+if {symmetry!r} is not None:  # the old commit has no symmetry setting
+    kw["symmetry"] = {symmetry!r}
 t0 = time.process_time()
 res = mf.evolve_otoc(chain, "Z", {L} // 2, times, chi={chi}, dt={dt}, **kw)
 cpu = time.process_time() - t0
 print(json.dumps({{"cpu": cpu, "max_step": float(res.meta.get("max_step", {dt})),
+                  "symmetry_used": res.meta.get("symmetry_used", "z2"),
                   "discarded": float(res.discarded_weight[-1]), "max_bond": int(res.max_bond.max()),
                   "C_Z": res.otoc("Z")[-1].tolist()}}))
 """
 
 
-def run_one(path: Path, order: int, splitting: str, dt: float, t_bench: float) -> dict:
+def run_one(path: Path, order: int, splitting: str, dt: float, t_bench: float, symmetry: str | None = None) -> dict:
     code = RUNNER.format(path=str(path), L=L, W=W, seed=SEED, t_bench=t_bench, order=order, splitting=splitting,
-                         chi=CHI, dt=dt)
+                         chi=CHI, dt=dt, symmetry=symmetry)
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
                          cwd=tempfile.gettempdir())
     res = json.loads(out.stdout.strip().splitlines()[-1])
@@ -85,6 +94,8 @@ def main() -> None:
     from mpo_fronts.stepsize import auto_dt
 
     chain = mf.xxz_chain(L, W=W, seed=SEED)
+    auto_symmetry = mf.EvolutionSettings(chi=CHI, dt="auto").engine_symmetry(chain, "Z")
+    print(f"symmetry = 'auto' with dt = 'auto' picks {auto_symmetry!r} here", flush=True)
     matched = {}
     for order, splitting in ((2, "standard"), (4, "standard"), (4, "blanes_moan")):
         dt, info = auto_dt(chain, "Z", L // 2, args.t_final, order, splitting, args.tol)
@@ -97,18 +108,19 @@ def main() -> None:
                    capture_output=True)
     rows = []
     try:
-        # (label, tree, order, splitting, step actually run): the slow matched steps are timed at a longer
-        # step and scaled by the number of steps (see the module doc)
-        configs = [("f35581a, order 2 (Strang)", old_tree, 2, "standard", 0.05),
-                   ("f35581a, order 4 (Suzuki)", old_tree, 4, "standard", 0.1),
-                   ("this tree, order 2 (Strang)", ROOT, 2, "standard", 0.05),
-                   ("this tree, order 4 (Blanes-Moan), dt = auto", ROOT, 4, "blanes_moan",
-                    matched[(4, "blanes_moan")][0]),
-                   ("this tree, order 4 (Blanes-Moan), half step", ROOT, 4, "blanes_moan",
-                    0.5 * matched[(4, "blanes_moan")][0])]
-        for label, tree, order, splitting, dt_run in configs:
+        # (label, tree, order, splitting, step actually run, symmetry): the slow matched steps are timed at a
+        # longer step and scaled by the number of steps (see the module doc); symmetry None: the old commit
+        bm = matched[(4, "blanes_moan")][0]
+        configs = [("f35581a, order 2 (Strang)", old_tree, 2, "standard", 0.05, None),
+                   ("f35581a, order 4 (Suzuki)", old_tree, 4, "standard", 0.1, None),
+                   ("this tree, order 2 (Strang)", ROOT, 2, "standard", 0.05, "z2"),
+                   ("this tree, order 4 (Blanes-Moan), dt = auto, Z2 engine", ROOT, 4, "blanes_moan", bm, "z2"),
+                   ("this tree, order 4 (Blanes-Moan), half step, Z2 engine", ROOT, 4, "blanes_moan", 0.5 * bm,
+                    "z2"),
+                   ("this tree, order 4 (Blanes-Moan), dt = auto, U(1) engine", ROOT, 4, "blanes_moan", bm, "u1")]
+        for label, tree, order, splitting, dt_run, symmetry in configs:
             t0 = time.perf_counter()
-            r = run_one(tree, order, splitting, dt_run, args.t_bench)
+            r = run_one(tree, order, splitting, dt_run, args.t_bench, symmetry)
             dt_m = matched[(order, splitting)][0]
             r.update(label=label, order=order, splitting=splitting, dt_run=dt_run, dt_matched=dt_m,
                      predicted_error_at_dt_run=matched[(order, splitting)][1]["A"] * dt_run ** order * args.t_final,
@@ -122,16 +134,20 @@ def main() -> None:
         subprocess.run(["git", "-C", str(ROOT), "worktree", "remove", "--force", str(old_tree)], check=False,
                        capture_output=True)
     best_old = max(r["sim_time_per_cpu_s_matched"] for r in rows if r["label"].startswith("f35581a"))
-    new = next(r for r in rows if "dt = auto" in r["label"])
+    new_z2 = next(r for r in rows if "dt = auto, Z2" in r["label"])
+    new = next(r for r in rows if "dt = auto, U(1)" in r["label"])
     ratio = new["sim_time_per_cpu_s_matched"] / best_old
+    ratio_z2 = new_z2["sim_time_per_cpu_s_matched"] / best_old
+    u1_vs_z2 = new["sim_time_per_cpu_s_matched"] / new_z2["sim_time_per_cpu_s_matched"]
+    u1_z2_cz = float(np.max(np.abs(np.asarray(new["C_Z"]) - np.asarray(new_z2["C_Z"]))))
     same = rows[0]["C_Z"], rows[2]["C_Z"]
-    import numpy as np
-
     agree = float(np.max(np.abs(np.asarray(same[0]) - np.asarray(same[1]))))
     print(f"ratio at matched Trotter accuracy (tol {args.tol:g} up to t = {args.t_final:g}): {ratio:.2f}x over the "
-          f"best option of f35581a; old and new order-2 runs agree to {agree:.1e} in C_Z at t = {args.t_bench:g}")
+          f"best option of f35581a with the U(1) engine ({ratio_z2:.2f}x with the Z2 engine; U(1) / Z2 "
+          f"{u1_vs_z2:.2f}x, C_Z of the two differing by {u1_z2_cz:.1e} at t = {args.t_bench:g}, truncation); old "
+          f"and new order-2 runs agree to {agree:.1e} in C_Z at t = {args.t_bench:g}")
     hours = args.t_final / new["sim_time_per_cpu_s_matched"] / 3600
-    print(f"expected cost of t = {args.t_final:g} per realization with dt = auto: {hours:.2f} CPU hours "
+    print(f"expected cost of t = {args.t_final:g} per realization with dt = auto (U(1)): {hours:.2f} CPU hours "
           f"(chi = {CHI}, bond dimension reached by t = {args.t_bench:g}: {new['max_bond']})")
     write_json("long_times", {
         "command": "nice -n 10 python scripts/bench/long_times.py " + " ".join(sys.argv[1:]),
@@ -140,7 +156,11 @@ def main() -> None:
         "matched_steps": {f"{o}/{s}": {"dt": d, "A": i["A"], "ratio": i["ratio"]} for (o, s), (d, i) in
                           matched.items()},
         "rows": [{k: v for k, v in r.items() if k != "C_Z"} for r in rows],
-        "ratio_matched": ratio, "old_new_agreement_CZ": agree, "hours_to_t_final": hours,
+        "ratio_matched": ratio, "ratio_matched_z2_engine": ratio_z2, "u1_over_z2_at_dt_auto": u1_vs_z2,
+        "u1_z2_max_abs_dCZ_at_t_bench": u1_z2_cz, "auto_symmetry": auto_symmetry,
+        "note": ("ratio_matched: the dt = auto U(1) row over the best f35581a row (simulated time per CPU second at "
+                 "matched Trotter accuracy); all rows measured one after another in this command"),
+        "old_new_agreement_CZ": agree, "hours_to_t_final": hours,
         "machine": machine()})
 
 
