@@ -22,7 +22,7 @@ from .errors import ConfigError, InputError
 from .schedules import DEFAULT_CHUNK, ORDERS, SPLITTINGS, check_splitting
 from .truncation import route, route_names
 
-__all__ = ["EvolutionSettings", "SETTINGS_KEYS", "NEW_DEFAULTS", "SYMMETRIES"]
+__all__ = ["EvolutionSettings", "SETTINGS_KEYS", "NEW_DEFAULTS", "SYMMETRIES", "U1_MIN_CHI"]
 
 _WHAT = {
     "chi": "a positive integer (maximum bond dimension)",
@@ -39,6 +39,10 @@ _WHAT = {
 #: where it grades today), ``"u1"`` the charge-block engine (:class:`mpo_fronts.u1.ChargeTEBD`), ``"auto"``
 #: the choice of :meth:`EvolutionSettings.engine_symmetry`.
 SYMMETRIES = ("auto", "z2", "u1")
+#: Smallest chi at which ``symmetry = "auto"`` takes the U(1) engine: below it the Python work per charge sector
+#: outweighs the smaller decompositions (data/benchmarks/u1_blocks_small_chi.json), as for the Z2 grading
+#: (:data:`mpo_fronts.evolve.GRADED_MIN_CHI`).
+U1_MIN_CHI = 32
 
 
 @dataclass(frozen=True)
@@ -72,18 +76,24 @@ class EvolutionSettings:
         A registered truncation route (:func:`mpo_fronts.truncation.route_names`): 'svd' (default), 'rsvd',
         'eigh'.
     symmetry : {'auto', 'z2', 'u1'}
-        The symmetry blocks of the engine. ``"z2"``: the Pauli-basis engine
-        :class:`~mpo_fronts.evolve.OperatorTEBD` (real tensors; Z2-graded blocks when the chain conserves total
-        S^z and chi >= 32, as before this setting existed). ``"u1"``: :class:`~mpo_fronts.u1.ChargeTEBD`, blocks
-        of the U(1) charge (total S^z) in the basis I, Z, S+, S-; only for a chain that conserves total S^z
-        (the XXZ chain), W = Z and truncation ``"svd"``; anything else raises an InputError naming
-        ``symmetry``. ``"auto"`` (default): ``"u1"`` when ``dt = "auto"`` and the run allows it (S^z-conserving
-        chain, W = Z, truncation ``"svd"``, chi >= 2), ``"z2"`` otherwise, and always ``"z2"`` with a
-        numeric dt, so that every run that gives dt as a number computes exactly what it computed before the
-        setting existed (same engine, same results, same run fingerprint). The two engines agree to rounding
-        where neither truncates; with truncation they differ by an amount of the order of the truncation
-        error (see :class:`~mpo_fronts.u1.ChargeTEBD`). The engine used is recorded as ``symmetry_used`` (and
-        ``engine``) in the outputs; :meth:`engine_symmetry` resolves the choice.
+        The symmetry blocks of the engine.
+
+        * ``"z2"``: the Pauli-basis engine :class:`~mpo_fronts.evolve.OperatorTEBD` (real tensors; Z2-graded
+          blocks when the chain conserves total S^z and chi >= 32, as before this setting existed).
+        * ``"u1"``: :class:`~mpo_fronts.u1.ChargeTEBD`, blocks of the U(1) charge (total S^z) in the basis
+          I, Z, S+, S-; only for a chain that conserves total S^z (the XXZ chain), W = Z, truncation
+          ``"svd"`` and chi >= 2; anything else raises an InputError naming ``symmetry``.
+        * ``"auto"`` (default): ``"u1"`` when ``dt = "auto"``, the chain conserves S^z, W = Z, truncation is
+          ``"svd"`` and chi >= :data:`U1_MIN_CHI`; ``"z2"`` otherwise. With a numeric dt it is always
+          ``"z2"``, so that every run that gives dt as a number computes exactly what it computed before the
+          setting existed (same engine, same results, same run fingerprint); with ``dt = "auto"`` it is the
+          fast path of :func:`mpo_fronts.evolve_otoc` (order 4 Blanes-Moan with charge blocks).
+
+        The two engines agree to rounding where neither truncates. With truncation they differ by an amount
+        of the order of the truncation error: ChargeTEBD keeps or drops degenerate (v, -v) pairs of singular
+        values whole (the operator stays U(1)-symmetric, C_X = C_Y exactly), so at equal chi it may discard
+        slightly more. The engine used is recorded as ``symmetry_used`` (and ``engine``) in the outputs;
+        :meth:`engine_symmetry` resolves the choice.
 
     Examples
     --------
@@ -207,7 +217,7 @@ class EvolutionSettings:
                                  arg="symmetry")
             return "u1"
         if self.symmetry == "auto" and self.auto and conserving and w == "Z" and self.truncation == "svd" \
-                and self.chi >= 2:
+                and self.chi >= U1_MIN_CHI:
             return "u1"
         return "z2"
 

@@ -249,20 +249,23 @@ def test_auto_symmetry_picks_u1_only_with_dt_auto_for_z_on_conserving_chains(mon
     from mpo_fronts import stepsize
     from mpo_fronts.settings import EvolutionSettings
 
+    from mpo_fronts.settings import U1_MIN_CHI
+
     xxz, ising = mf.xxz_chain(6, W=1.0, seed=1), mf.mixed_field_ising_chain(6)
     auto = EvolutionSettings(dt="auto")
     assert auto.symmetry == "auto" and auto.engine_symmetry(xxz, "Z") == "u1"
     assert auto.engine_symmetry(xxz, "X") == "z2" and auto.engine_symmetry(ising, "Z") == "z2"
     assert auto.replace(truncation="rsvd").engine_symmetry(xxz, "Z") == "z2"
+    assert auto.replace(chi=U1_MIN_CHI - 1).engine_symmetry(xxz, "Z") == "z2"  # small chi: Z2 is cheaper
+    assert auto.replace(chi=U1_MIN_CHI - 1, symmetry="u1").engine_symmetry(xxz, "Z") == "u1"
     assert EvolutionSettings(dt=0.1).engine_symmetry(xxz, "Z") == "z2"  # a numeric dt: today's engine
     assert EvolutionSettings(dt=0.1, symmetry="u1").engine_symmetry(xxz, "Z") == "u1"
     monkeypatch.setattr(stepsize, "auto_dt", _fake_auto_dt)
-    res = mf.evolve_otoc(xxz, "Z", 2, [0.5], chi=16, dt="auto")
+    res = mf.evolve_otoc(xxz, "Z", 2, [0.5], chi=32, dt="auto")
     assert res.meta["symmetry_used"] == "u1" and res.meta["symmetry"] == "auto" and res.meta["order"] == 4
     assert res.meta["engine"] == "ChargeTEBD" and res.meta["dt_used"] == 0.1
-    assert mf.evolve_otoc(xxz, "X", 2, [0.5], chi=16, dt="auto").meta["symmetry_used"] == "z2"
-    assert mf.evolve_otoc(ising, "Z", 2, [0.5], chi=16, dt="auto").meta["symmetry_used"] == "z2"
-    assert mf.evolve_otoc(xxz, "Z", 2, [0.5], chi=16, dt=0.1).meta["symmetry_used"] == "z2"
+    for chain, w, kw in ((xxz, "X", {}), (ising, "Z", {}), (xxz, "Z", {"dt": 0.1}), (xxz, "Z", {"chi": 16})):
+        assert mf.evolve_otoc(chain, w, 2, [0.5], **{"chi": 32, "dt": "auto", **kw}).meta["symmetry_used"] == "z2"
 
 
 @pytest.mark.parametrize("chain, w, kw", [
@@ -349,8 +352,8 @@ def test_driver_resume_with_auto_symmetry_follows_the_checkpoint(monkeypatch):
     from mpo_fronts.settings import EvolutionSettings
 
     monkeypatch.setattr(stepsize, "auto_dt", _fake_auto_dt)
-    chain = mf.xxz_chain(8, W=1.0, seed=2)
-    times = [0.4, 0.8]
+    chain = mf.xxz_chain(10, W=1.0, seed=2)
+    times = [0.5, 3.0]
 
     class Save(Observer):
         def __init__(self):
@@ -362,17 +365,17 @@ def test_driver_resume_with_auto_symmetry_follows_the_checkpoint(monkeypatch):
                            "restarts": 0, "outputs": {k: v.copy() for k, v in evolution.outputs().items()}}
 
     for dt, written, other in (("auto", "z2", "u1"), (0.1, "u1", "z2")):
-        s = EvolutionSettings(chi=8, dt=dt, chunk=1)
+        s = EvolutionSettings(chi=32, dt=dt, chunk=2)
         save = Save()
-        full = evolve(chain, "Z", 3, times, s.replace(symmetry=written), observers=[save])
-        resumed = evolve(chain, "Z", 3, times, s, resume=save.ck)
+        full = evolve(chain, "Z", 4, times, s.replace(symmetry=written), observers=[save])
+        resumed = evolve(chain, "Z", 4, times, s, resume=save.ck)
         assert s.engine_symmetry(chain, "Z") == other  # what a fresh run would have used
         assert resumed.engine["symmetry_used"] == written and resumed.restarts == 1
         assert full.arrays["discarded_weight"][-1] > 0
         for name in full.arrays:
             assert np.array_equal(full.arrays[name], resumed.arrays[name]), name
         with pytest.raises(InputError, match=f"checkpoint was written by the '{written}' engine") as info:
-            evolve(chain, "Z", 3, times, s.replace(symmetry=other), resume=save.ck)
+            evolve(chain, "Z", 4, times, s.replace(symmetry=other), resume=save.ck)
         assert info.value.arg == "resume"
 
 
