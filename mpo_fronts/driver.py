@@ -39,7 +39,8 @@ from .settings import EvolutionSettings
 from .truncation import SVD_FLOOR
 from .u1 import ChargeTEBD
 
-__all__ = ["evolve", "evolve_otoc", "truncation_warnings", "Evolution", "operator_profiles", "truncation_record", "entanglement", "ProductStates",
+__all__ = ["evolve", "evolve_otoc", "truncation_warnings", "Evolution", "operator_profiles", "truncation_record",
+           "entanglement", "ProductStates",
            "DEFAULT_MEASUREMENTS", "Observer", "OnBlock", "build_engine", "pauli_arrays"]
 
 Measurement = Callable[[BrickworkEngine], Mapping[str, Any]]
