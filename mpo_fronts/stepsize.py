@@ -176,6 +176,7 @@ def estimate_trotter_error(chain: Chain, w: str, site: int, dt: float = 0.1, ord
     for d in dts:
         n_max = max(1, int(round(t_pilot / d)))
         steps = np.unique(np.round(np.linspace(n_max / n_times, n_max, n_times)).astype(int))
+        steps = steps[steps >= 1]  # a short pilot rounds its first steps to 0: t = 0 has no Trotter error to fit
         times = steps * d
         tr = trotter_otoc(sub, w, s, d, steps, order, splitting, probes=_PILOT_PROBES)
         ex = exact_window_otoc(sub, w, s, times, probes=_PILOT_PROBES)

@@ -99,3 +99,15 @@ def test_evolve_otoc_with_dt_auto_against_exact_evolution():
 def test_engine_refuses_an_unresolved_auto_step():
     with pytest.raises(InputError, match="auto"):
         mf.OperatorTEBD(mf.xxz_chain(6), "Z", 0, mf.EvolutionSettings(dt="auto"))
+
+
+def test_a_short_pilot_gives_a_finite_fit():
+    # t_pilot / dt = 1.5 steps: the evenly spaced pilot steps round to 0 and 1; the step count 0 (t = 0) used to
+    # divide the rounding-level error by zero and report A = inf, which made auto_dt fall to its smallest step.
+    import warnings
+
+    chain = mf.xxz_chain(8, W=6.0, seed=1)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        fit = estimate_trotter_error(chain, "Z", 4, 0.2, 4, "blanes_moan", t_pilot=0.3)
+    assert np.isfinite(fit["A"]) and fit["A"] > 0
