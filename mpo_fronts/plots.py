@@ -657,8 +657,7 @@ def plot_entropy(ens, threshold: float = 0.5, probe: str = "Z", *, use_trust: bo
     vmax = max(float(np.nanmax(S)) if S.size else 0.0, 1e-12)
     mesh = sx.pcolormesh(be, te, S, cmap="viridis", vmin=0.0, vmax=vmax, shading="flat", rasterized=True)
     cb = fig.colorbar(mesh, ax=sx)
-    # the evolution settings: ``evolution`` from 0.2 on, ``engine`` before (and in duck-typed ensembles)
-    chi = (getattr(ens, "evolution", None) or getattr(ens, "engine", None) or {}).get("chi")
+    chi = an.evolution_settings(ens).get("chi")  # ``evolution`` from 0.2 on, ``engine`` before
     chi = int(chi) if isinstance(chi, (int, np.integer, float)) and chi and chi > 1 else None
     label = f"operator entanglement entropy S_b (nats)\nmean over {R} realization(s)"
     if chi:  # S_b <= ln chi for Schmidt rank <= chi (common practice): the ceiling the truncation imposes
