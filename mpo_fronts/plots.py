@@ -600,6 +600,16 @@ def _w_marker(ax, site: int, color="w"):
                   f"{site - 1} and {site})")
 
 
+def _bond_grid(ens, a: np.ndarray):
+    """The positive output times, the mean over realizations of a per-bond array (R, n_t, L - 1) at them, and the
+    cell edges of its heat map (bond, log time)."""
+    t = np.asarray(ens.times, dtype=float)
+    keep = _positive_times(t)
+    t = t[keep]
+    mean = a.mean(axis=0)[keep]
+    return t, mean, np.arange(mean.shape[1] + 1) - 0.5, _log_edges(t)
+
+
 def _bond_mesh_axes(ax, t: np.ndarray, n_bonds: int, site: int):
     """Limits, scales and labels shared by the per-bond heat maps (bond index vs log time)."""
     from matplotlib.ticker import MaxNLocator
@@ -647,13 +657,8 @@ def plot_entropy(ens, threshold: float = 0.5, probe: str = "Z", *, use_trust: bo
     cx, sx = axes[0]
     handles, info = _heatmap_panel(fig, cx, ens, threshold, probe, None, use_trust, max_discarded, color_scale,
                                    c_min)
-    t = np.asarray(ens.times, dtype=float)
-    keep = _positive_times(t)
-    t = t[keep]
-    S = S_all.mean(axis=0)[keep]
+    t, S, be, te = _bond_grid(ens, S_all)
     R, nb, site = S_all.shape[0], S.shape[1], int(ens.site)
-    be = np.arange(nb + 1) - 0.5
-    te = _log_edges(t)
     vmax = max(float(np.nanmax(S)) if S.size else 0.0, 1e-12)
     mesh = sx.pcolormesh(be, te, S, cmap="viridis", vmin=0.0, vmax=vmax, shading="flat", rasterized=True)
     cb = fig.colorbar(mesh, ax=sx)
@@ -709,13 +714,8 @@ def plot_discarded(ens, *, ax=None):
     D_all = _need_bond_array(ens, "bond_discarded", "discarded")
     fig, axes, own = _axes(ax, 6.4, 4.8, what="one matplotlib Axes")
     ax = axes[0, 0]
-    t = np.asarray(ens.times, dtype=float)
-    keep = _positive_times(t)
-    t = t[keep]
-    D = D_all.mean(axis=0)[keep]
+    t, D, be, te = _bond_grid(ens, D_all)
     R, nb, site = D_all.shape[0], D.shape[1], int(ens.site)
-    be = np.arange(nb + 1) - 0.5
-    te = _log_edges(t)
     ax.add_patch(Rectangle((be[0], te[0]), be[-1] - be[0], te[-1] - te[0], facecolor="w", edgecolor="0.6",
                            hatch="..", lw=0, zorder=0))
     handles = [Patch(facecolor="w", edgecolor="0.6", hatch="..", label="no weight discarded")]
