@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 
 import mpo_fronts as mf
+from interrupting import interrupt_repeatedly
 from mpo_fronts.config import parse_description
 from mpo_fronts.workflows import check_against_exact
 from mpo_fronts.ensemble import (compute_realization, parse_dask, parse_shard, run_ensemble,
@@ -135,19 +136,7 @@ def test_checkpoint_resume_equals_uninterrupted(tmp_path):
     out = tmp_path / "ck"
     rd = RunDirectory.create(out, d)
 
-    class Stop(Exception):
-        pass
-
-    for n_stop in (3, 2, 4):  # interrupt three times, each after a few blocks
-        calls = {"n": 0}
-
-        def prog(k, t):
-            calls["n"] += 1
-            if calls["n"] == n_stop:
-                raise Stop
-
-        with pytest.raises(Stop):
-            compute_realization(str(rd.path), d.to_dict(), 0, f"attempt-{n_stop}", progress=prog)
+    for _ in interrupt_repeatedly(rd, d):  # interrupt three times, each after a few blocks
         assert rd.load_checkpoint(0) is not None and not rd.has_result(0)
     res = compute_realization(str(rd.path), d.to_dict(), 0, "final")
     assert res["status"] == "done" and res["resumed_from"] > 0

@@ -7,6 +7,7 @@ import pytest
 import scipy.linalg
 
 import mpo_fronts as mf
+from interrupting import interrupt_repeatedly
 from mpo_fronts.conventions import PAULI
 from mpo_fronts.errors import InputError
 from mpo_fronts.evolve import OperatorTEBD, bond_entropies
@@ -317,19 +318,7 @@ def test_ensemble_checkpoint_resume_with_u1_repeats_the_uninterrupted_run(tmp_pa
     run_ensemble(d, tmp_path / "ref", progress="none")
     rd = RunDirectory.create(tmp_path / "ck", d)
 
-    class Stop(Exception):
-        pass
-
-    for n_stop in (3, 2, 4):
-        calls = {"n": 0}
-
-        def prog(k, t):
-            calls["n"] += 1
-            if calls["n"] == n_stop:
-                raise Stop
-
-        with pytest.raises(Stop):
-            compute_realization(str(rd.path), d.to_dict(), 0, f"attempt-{n_stop}", progress=prog)
+    for _ in interrupt_repeatedly(rd, d):  # interrupt three times, each after a few blocks
         ck = rd.load_checkpoint(0)
         assert ck is not None and ck["state"]["engine"] == "u1" and np.iscomplexobj(ck["state"]["arrays"][0])
     res = compute_realization(str(rd.path), d.to_dict(), 0, "final")
