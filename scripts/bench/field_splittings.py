@@ -84,6 +84,10 @@ SUZUKI5 = (_P, _P, 1.0 - 4.0 * _P, _P, _P)
 # (closed form, from memory; its order is verified below by the error ratio).
 _W1 = 1.0 / (2.0 - 2.0 ** (1.0 / 3.0))
 YOSHIDA3 = (_W1, 1.0 - 2.0 * _W1, _W1)
+# The same triple jump raises a symmetric fourth-order step to sixth order with w1 = 1/(2 - 2^(1/5)) (Yoshida
+# 1990, the general rule 2^(1/(2n+1)) for order 2n -> 2n + 2; closed form, verified below by the error ratio).
+_W1_6 = 1.0 / (2.0 - 2.0 ** (1.0 / 5.0))
+YOSHIDA3_6 = (_W1_6, 1.0 - 2.0 * _W1_6, _W1_6)
 
 
 # ------------------------------------------------------------------------------------------ the pieces
@@ -208,6 +212,10 @@ _add("brick/blanes_moan4_fields_even", "a", 4,
      "Blanes & Moan (2002) S6 with every field inside the even-bond gates",
      lambda P, tau: two_op(P.fields_even, P.L, schedules.step_layers(4, "blanes_moan"), tau),
      ["EO"[p] for p, _ in schedules.step_layers(4, "blanes_moan")])
+_add("brick/blanes_moan4_yoshida6", "a", 6,
+     "Yoshida 1990 triple jump of the Blanes & Moan (2002) S6 step (order 6); fields shared between bond gates",
+     lambda P, tau: compose(lambda s: trotter_step(P.chain, s, 4, "blanes_moan"), YOSHIDA3_6, tau),
+     ["EO"[p] for p, _ in schedules.step_layers(4, "blanes_moan")] * 3)
 for _ord in ("FEO", "FOE", "EFO", "OFE", "EOF", "OEF"):
     _add(f"3op/strang_{_ord}", "b", 2, "Strang 1968 on three operators, order " + "-".join(_ord),
          (lambda o: lambda P, tau: strang3(P, o, tau))(_ord), _letters_strang3(_ord))
@@ -427,6 +435,8 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="W = 6, seed 1, no t = 1000 check (a smoke run)")
     ap.add_argument("--schemes", nargs="*", default=None, help="subset of scheme names")
+    ap.add_argument("--name", default=None,
+                    help="with --schemes: write the subset's rows to data/benchmarks/NAME.json")
     args = ap.parse_args()
     selfcheck = check_dense_route()
     print(f"self-check (fast OTOC = stepsize.trotter_otoc and exact_window_otoc; ip/magnus2 at W = 0 = Strang; "
@@ -440,6 +450,12 @@ def main() -> None:
     if not args.quick:
         cols.insert(-2, "err_at_dt_tol_t1000")
     print(table(rows, cols))
+    if args.schemes and args.name and not args.quick:
+        for r in rows:
+            r.pop("seconds", None)
+        write_json(args.name, {"setting": "as in field_splittings.json (see scripts/bench/field_splittings.py)",
+                               "sources": {n: SCHEMES[n]["source"] for n in names}, "self_check": selfcheck,
+                               "rows": rows})
     if args.quick or args.schemes:
         return
     big = ["brick/standard2", "brick/blanes_moan4", "ip/exact_bond2", "ip/exact_bond_suzuki5"]
