@@ -17,7 +17,46 @@ from .rundir import (CONVERGENCE_FILE, LETTER_AXIS, MERGED_FORMAT, OPTIONAL, RES
                      describe_dataset, description_diff, evolution_attr)
 
 __all__ = ["Ensemble", "load", "merge", "convergence_runs", "read_convergence", "write_convergence_group",
-           "read_convergence_group"]
+           "read_convergence_group", "combine_evolution"]
+
+
+def combine_evolution(base: dict, records: Sequence[dict]) -> dict:
+    """The evolution record of an ensemble from those of its realizations (or of merged ensembles).
+
+    Settings (chi, order, ...) are the same in every realization; what the driver chose per realization is not:
+    with dt = "auto" each realization gets its own step. The combined record keeps the worst case and the
+    range: ``max_step`` and ``dt_used`` are the largest, ``dt_used_range`` is [smallest, largest],
+    ``trotter_estimate`` is that of the realization claiming the largest Trotter error, ``splits`` are summed,
+    and an engine (``symmetry_used``, ``engine``) that differs between realizations is listed as "a+b".
+    ``base`` (the description's settings) is updated; records may themselves be combined ones.
+    """
+    out = dict(base)
+    records = [dict(r) for r in records]
+    if not records:
+        return out
+    for r in records:
+        out.update({k: v for k, v in r.items() if k not in ("max_step", "dt_used", "dt_used_range", "splits",
+                                                            "trotter_estimate", "symmetry_used", "engine")})
+    out["max_step"] = max(float(r.get("max_step", 0.0)) for r in records)
+    lows = [r["dt_used_range"][0] if "dt_used_range" in r else r["dt_used"] for r in records if "dt_used" in r]
+    highs = [r["dt_used_range"][1] if "dt_used_range" in r else r["dt_used"] for r in records if "dt_used" in r]
+    if highs:
+        out["dt_used"] = max(highs)
+        out["dt_used_range"] = [min(lows), max(highs)]
+    if any("splits" in r for r in records):
+        total: dict = {}
+        for r in records:
+            for k, v in dict(r.get("splits") or {}).items():
+                total[k] = total.get(k, 0) + int(v)
+        out["splits"] = total
+    est = [r["trotter_estimate"] for r in records if r.get("trotter_estimate")]
+    if est:
+        out["trotter_estimate"] = max(est, key=lambda e: float(e.get("predicted_error", 0.0)))
+    for key in ("symmetry_used", "engine"):
+        vals = sorted({p for r in records if key in r for p in str(r[key]).split("+")})
+        if vals:
+            out[key] = "+".join(vals)
+    return out
 
 
 # ------------------------------------------------------------------------------------------- loading
@@ -303,14 +342,12 @@ def _load_dir(path: Path) -> Ensemble:
     evolution = dict(rd.description.engine)
     versions = set()
     if files:
-        max_step = 0.0
+        records = []
         for p in files:
             with h5py.File(p, "r") as f:
-                e = evolution_attr(f)
-                max_step = max(max_step, float(e.get("max_step", 0.0)))
+                records.append(evolution_attr(f))
                 versions.add(str(f.attrs["version"]))
-        evolution.update({k: v for k, v in e.items() if k != "max_step"})
-        evolution["max_step"] = max_step
+        evolution = combine_evolution(evolution, records)
     info = {"version": meta.get("version"), "conventions": meta.get("conventions"), "versions": sorted(versions)}
     return Ensemble(_Source(files=files), np.asarray(done, dtype=int), meta["description"], evolution, info,
                     path=rd.path)
@@ -462,7 +499,7 @@ def _combine(ens: list[Ensemble]) -> Ensemble:
             else np.empty((0,))
     desc = dict(ens[0].description)
     desc["ensemble"] = dict(desc["ensemble"], realizations=max(e._desc.realizations for e in ens))
-    evolution = dict(ens[0].evolution, max_step=max(float(e.evolution.get("max_step", 0.0)) for e in ens))
+    evolution = combine_evolution(ens[0].evolution, [e.evolution for e in ens])
     meta = {"version": ens[0].version, "conventions": ens[0].conventions,
             "versions": sorted({str(v) for e in ens for v in e.meta.get("versions", [e.version])})}
     return Ensemble(_Source(arrays=arrays), np.asarray(ks), desc, evolution, meta, path=None)

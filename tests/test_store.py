@@ -358,3 +358,34 @@ def test_files_written_before_0_2_keep_loading(small_run, tmp_path):
     assert load(old).engine == load(small_run).engine
     st = run_status(old)
     assert st["largest_discarded_weight"] == st["max_discarded_weight"] == run_status(small_run)["max_discarded_weight"]
+
+
+def test_an_ensemble_reports_the_steps_of_all_its_realizations_not_the_last_ones(tmp_path):
+    # dt = "auto" picks a step per realization (each has its own fields); the ensemble used to report the last
+    # realization's dt_used, Trotter estimate and split counts as if they held for every realization
+    raw = {"model": {"kind": "xxz", "L": 8, "W": 6.0}, "operators": {"w": "Z", "site": "center", "v": ["Z"]},
+           "times": {"values": [0.5, 1.5]},
+           "evolution": {"chi": 8, "dt": "auto", "order": 4, "splitting": "blanes_moan"},
+           "ensemble": {"realizations": 3, "seed": 5}}
+    run = tmp_path / "run"
+    run_ensemble(parse_description(raw), run)
+    per = []
+    for k in range(3):
+        with h5py.File(run / "realizations" / f"r{k:05d}.h5") as f:
+            per.append(json.loads(f.attrs["evolution"]))
+    dts = [e["dt_used"] for e in per]
+    assert len(set(dts)) > 1  # the premise: the realizations did use different steps
+    worst = max(per, key=lambda e: e["trotter_estimate"]["predicted_error"])
+    ens = load(run)
+    path, _ = merge([run], tmp_path / "all.h5")
+    for ev in (ens.evolution, mf.load(path).evolution):
+        assert ev["dt_used"] == max(dts) and ev["dt_used_range"] == [min(dts), max(dts)]
+        assert ev["trotter_estimate"] == worst["trotter_estimate"]  # the realization with the largest claim
+        assert ev["splits"] == {r: sum(e["splits"][r] for e in per) for r in per[0]["splits"]}
+        assert ev["max_step"] == max(e["max_step"] for e in per)
+        assert ev["symmetry_used"] == per[0]["symmetry_used"]
+    from mpo_fronts.report import format_summary, summarize
+
+    s = summarize(ens, threshold=0.1)
+    assert s["evolution"]["dt_used_range"] == [min(dts), max(dts)]
+    assert f"dt_used = {max(dts):g}" in format_summary(s) and "dt_used_range" in format_summary(s)
