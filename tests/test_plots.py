@@ -7,7 +7,6 @@ import pytest
 
 pytest.importorskip("matplotlib")
 
-from mpo_fronts import analysis as an  # noqa: E402
 from mpo_fronts import plots  # noqa: E402
 from mpo_fronts import trust  # noqa: E402
 from mpo_fronts.errors import InputError  # noqa: E402
