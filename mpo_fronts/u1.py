@@ -421,6 +421,8 @@ class ChargeTEBD(BrickworkEngine):
         self.t = 0.0
         self.blocks_done = 0
         self.max_step = 0.0
+        self._qr_every = 0  # EXPERIMENT, see _qr_gate: 0 = always the SVD (the engine's route)
+        self._qr_count: dict[int, int] = {}
 
     # ------------------------------------------------------------------ bookkeeping
     def norm2(self) -> float:
@@ -583,6 +585,8 @@ class ChargeTEBD(BrickworkEngine):
         post = np.empty_like(pre)
         for c, idx in gm.pair_maps:  # the gate: entries of one (l, r) whose letter pairs have charge c
             post[idx] = G[c] @ pre[idx]
+        if self._qr_every and self._qr_gate(b, gm, post, mid, A2, B2, Dl, Dr, to_right):
+            return
         # decompositions for v >= 0; v = 0 in real arithmetic
         dec = []
         for v, ridx, cidx, o, nr, nc in gm.blocks:
@@ -631,6 +635,68 @@ class ChargeTEBD(BrickworkEngine):
         self.arrays[b + 1] = newB.reshape(k, 4, Dr)
         self.charges[b] = labs
         self.center = b + 1 if to_right else b
+
+
+    def _qr_gate(self, b, gm, post, mid, A2, B2, Dl, Dr, to_right) -> bool:
+        """EXPERIMENT (off unless ``_qr_every`` is set; scripts/bench/u1_qr_gate.py): truncate the gate's blocks
+        by one subspace iteration from the old bond basis and a QR instead of an SVD, keeping the sector sizes
+        of bond b (cf. J. Unfried, J. Hauschild, F. Pollmann, Phys. Rev. B 107, 155133 (2023), from memory).
+        Falls back (returns False) to the SVD when the bond is below chi or on every ``_qr_every``-th gate of
+        the bond, which re-selects the sector sizes. Not in checkpoints yet (the per-bond gate counts are not
+        saved), so a resumed run in this mode does not repeat the uninterrupted one; the driver never sets it."""
+        n = self._qr_count.get(b, 0)
+        self._qr_count[b] = n + 1
+        if self.charges[b].size < self.chi or n % self._qr_every == 0:
+            return False
+        rows, cols = gm.rows, gm.cols
+        parts, disc = [], 0.0
+        for v, ridx, cidx, o, nr, nc in gm.blocks:
+            if v < 0:
+                continue
+            M = post[o:o + nr * nc].reshape(nr, nc)
+            sec = mid.get(v)
+            w = float(np.vdot(M, M).real)
+            if sec is None:
+                disc += w * (1 if v == 0 else 2)
+                continue
+            i, j = sec
+            real = v == 0
+            if to_right:
+                R0 = B2[i:j, cidx]
+                if real:
+                    M, R0 = _to_real(M, rows.real0, cols.real0), _to_real(R0, None, cols.real0)
+                q, _ = _qr(M @ R0.conj().T)
+                left, right = q, q.conj().T @ M
+            else:
+                L0 = A2[ridx, i:j]
+                if real:
+                    M, L0 = _to_real(M, rows.real0, cols.real0), _to_real(L0, rows.real0, None)
+                q, _ = _qr(M.conj().T @ L0)
+                left, right = M @ q, q.conj().T
+            kept = float(np.vdot(left, left).real if not to_right else np.vdot(right, right).real)
+            disc += max(w - kept, 0.0) * (1 if v == 0 else 2)
+            if real:
+                if rows.real0 is not None:
+                    left = _from_real_rows(left, rows.real0)
+                if cols.real0 is not None:
+                    right = _from_real_cols(right, cols.real0)
+            parts.append((v, ridx, cidx, left, right, i))
+        self.ledger.add(b, disc, "svd")
+        k = self.charges[b].size
+        newA = np.zeros((Dl * 4, k), dtype=complex)
+        newB = np.zeros((k, 4 * Dr), dtype=complex)
+        for v, ridx, cidx, left, right, i in parts:
+            kp = left.shape[1]
+            newA[ridx, i:i + kp] = left
+            newB[i:i + kp, cidx] = right
+            if v:
+                i2 = mid[-v][0]
+                newA[rows.pgroups[v], i2:i2 + kp] = left.conj()
+                newB[i2:i2 + kp, cols.pgroups[v]] = right.conj()
+        self.arrays[b] = newA.reshape(Dl, 4, k)
+        self.arrays[b + 1] = newB.reshape(k, 4, Dr)
+        self.center = b + 1 if to_right else b
+        return True
 
 
 def _block_qr(m: np.ndarray, side: _Side, q: np.ndarray, right: bool):
