@@ -20,7 +20,8 @@ Tables and keys (defaults in brackets)::
     [times]       values = [...] (strictly increasing, >= 0), or start, stop, num, spacing ["log"] | "linear"
     [evolution]   chi [64], dt [0.05], order [2], cutoff [0.0], chunk [20], truncation ["svd"] (or "rsvd", "eigh"),
                   symmetry ["auto"] (or "z2", "u1": the engine's symmetry blocks; "u1" for model.kind = "xxz"
-                  and operators.w = "Z" only)
+                  and operators.w = "Z" only), gate_update ["svd"] (or "qr": the U(1) engine's faster gate
+                  truncation, only where the U(1) engine runs)
                   (see mpo_fronts.settings.EvolutionSettings; the table's old name [engine] is still read)
     [ensemble]    realizations [1 without randomness, else required], seed [0]
     [run]         label [""], checkpoints [true], checkpoint_interval [300.0 s], claim_timeout [600.0 s]
@@ -224,6 +225,19 @@ def _check_symmetry(symmetry: str, kind: str, w: str, prefix: str) -> None:
                                                 f"eigenstates); got operators.w = {w!r}. Use 'z2' or 'auto'")
 
 
+def _check_gate_update(evolution: dict, kind: str, w: str, prefix: str) -> None:
+    """evolution.gate_update = "qr" needs the U(1) engine (checked before any work starts)."""
+    if evolution.get("gate_update") != "qr":
+        return
+    from types import SimpleNamespace
+
+    chain = SimpleNamespace(conserves_sz=kind in _SZ_CONSERVING, kind=kind)
+    try:
+        EvolutionSettings(**evolution).engine_symmetry(chain, w)
+    except InputError as exc:
+        raise ConfigError(f"{prefix}.gate_update", str(exc).replace("gate_update = 'qr' is", "'qr' is")) from None
+
+
 def _parse_operators(o: dict, L: int) -> dict:
     _check_keys("operators", o, SCHEMA["operators"])
     w = _str("operators.w", o.get("w", "Z"), ("X", "Y", "Z"))
@@ -413,6 +427,7 @@ def parse_description(raw: Mapping, source: str | None = None) -> "RunDescriptio
     evo_name = "engine" if "engine" in raw else "evolution"
     evolution = EvolutionSettings.from_table(_table(raw, evo_name), evo_name).to_dict()
     _check_symmetry(evolution["symmetry"], model["kind"], operators["w"], evo_name)
+    _check_gate_update(evolution, model["kind"], operators["w"], evo_name)
     run = _parse_run(_table(raw, "run"))
     ens_raw = _table(raw, "ensemble")
     _check_keys("ensemble", ens_raw, SCHEMA["ensemble"])

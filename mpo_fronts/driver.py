@@ -354,7 +354,7 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
                 cutoff: float = 0.0, state: str | None = None, chunk: int | None = None,
                 progress: Callable[[float], None] | None = None, truncation: str = "svd",
                 threads: int | None = 1, settings: EvolutionSettings | None = None, splitting: str | None = None,
-                trotter_tol: float = 1e-3, symmetry: str = "auto") -> OtocResult:
+                trotter_tol: float = 1e-3, symmetry: str = "auto", gate_update: str = "svd") -> OtocResult:
     """OTOCs C(r, t) of W at ``site`` with every probe site r, by Heisenberg-picture MPO TEBD.
 
     Parameters
@@ -367,7 +367,7 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
         Site of W.
     times : sequence of float
         Strictly increasing output times (>= 0, units 1/J); any spacing.
-    chi, dt, order, cutoff, chunk, truncation, splitting, trotter_tol, symmetry
+    chi, dt, order, cutoff, chunk, truncation, splitting, trotter_tol, symmetry, gate_update
         Evolution settings (see :class:`mpo_fronts.settings.EvolutionSettings`); or give ``settings``.
         ``dt="auto"`` chooses the largest step whose estimated Trotter error of C stays below ``trotter_tol``
         (with order 4, Blanes-Moan splitting unless ``order``/``splitting`` say otherwise); the step used is
@@ -385,7 +385,7 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
         threads on a shared machine slow them down). None leaves the BLAS setting as it is.
     settings : EvolutionSettings, optional
         All evolution settings at once (then chi, dt, order, cutoff, chunk, truncation, splitting,
-        trotter_tol, symmetry are not used).
+        trotter_tol, symmetry, gate_update are not used).
 
     Returns
     -------
@@ -404,7 +404,8 @@ def evolve_otoc(chain, w: str = "Z", site=0, times=(1.0,), chi: int = 64, dt: fl
     if settings is None:
         settings = EvolutionSettings(chi=chi, dt=dt, order=order, cutoff=cutoff,
                                      **({"chunk": chunk} if chunk is not None else {}), truncation=truncation,
-                                     splitting=splitting, trotter_tol=trotter_tol, symmetry=symmetry)
+                                     splitting=splitting, trotter_tol=trotter_tol, symmetry=symmetry,
+                                     gate_update=gate_update)
     if state is not None:
         check_bits(state, chain.L)
     ms = list(DEFAULT_MEASUREMENTS) + ([ProductStates((state,))] if state is not None else [])

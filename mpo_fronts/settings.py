@@ -33,6 +33,7 @@ _WHAT = {
     "cutoff": "a number in [0, 1) (discarded weight per truncation)",
     "chunk": "a positive integer (Trotter steps per block)",
     "symmetry": "\"auto\", \"z2\" or \"u1\" (symmetry blocks of the engine)",
+    "gate_update": "\"svd\" or \"qr\" (how the U(1) engine truncates a gate on a bond at chi)",
 }
 
 #: Values of ``symmetry``: ``"z2"`` the Pauli-basis engine (:class:`mpo_fronts.evolve.OperatorTEBD`, Z2-graded
@@ -94,6 +95,13 @@ class EvolutionSettings:
         values whole (the operator stays U(1)-symmetric, C_X = C_Y exactly), so at equal chi it may discard
         slightly more. The engine used is recorded as ``symmetry_used`` (and ``engine``) in the outputs;
         :meth:`engine_symmetry` resolves the choice.
+    gate_update : {'svd', 'qr'}
+        How the U(1) engine truncates a gate once the bond is at chi. ``"svd"`` (default): the SVD of every
+        charge block, the optimal truncation. ``"qr"``: one subspace iteration from the bond's old basis and a
+        QR (the sector sizes are kept), with the SVD on every :data:`mpo_fronts.u1.QR_SVD_EVERY`-th gate of
+        the bond to re-select them; about 2x faster at chi = 64 and slightly less accurate (measured in
+        scripts/bench/u1_qr_gate.py and README). Only with the U(1) engine: anything else raises an InputError
+        naming ``gate_update``.
 
     Examples
     --------
@@ -111,6 +119,7 @@ class EvolutionSettings:
     splitting: str | None = None
     trotter_tol: float = 1e-3
     symmetry: str = "auto"
+    gate_update: str = "svd"
 
     def __post_init__(self):
         def setv(name, value):
@@ -147,6 +156,13 @@ class EvolutionSettings:
         if not isinstance(self.symmetry, str) or self.symmetry.lower() not in SYMMETRIES:
             raise InputError(f"symmetry must be {_WHAT['symmetry']}, got {self.symmetry!r}", arg="symmetry")
         setv("symmetry", self.symmetry.lower())
+        if self.gate_update not in ("svd", "qr"):
+            raise InputError(f"gate_update must be {_WHAT['gate_update']}, got {self.gate_update!r}",
+                             arg="gate_update")
+        if self.gate_update == "qr" and self.symmetry == "z2":
+            raise InputError("gate_update = 'qr' is an option of the U(1) engine, but symmetry = 'z2'; use "
+                             "symmetry = 'u1' or 'auto' (with dt = 'auto'), or gate_update = 'svd'",
+                             arg="gate_update")
         if self.symmetry == "u1":
             if self.truncation != "svd":  # mpo_fronts.u1.COMPLEX_ROUTES (u1 comes after this module)
                 raise InputError(f"symmetry = 'u1' splits its blocks with truncation = 'svd' only, got truncation "
@@ -219,6 +235,11 @@ class EvolutionSettings:
         if self.symmetry == "auto" and self.auto and conserving and w == "Z" and self.truncation == "svd" \
                 and self.chi >= U1_MIN_CHI:
             return "u1"
+        if self.gate_update == "qr":
+            raise InputError(f"gate_update = 'qr' is an option of the U(1) engine, and this run uses the Z2 engine "
+                             f"(symmetry = {self.symmetry!r} takes U(1) only with dt = 'auto', an S^z-conserving "
+                             f"chain, W = Z, truncation 'svd' and chi >= {U1_MIN_CHI}); use symmetry = 'u1' or "
+                             f"gate_update = 'svd'", arg="gate_update")
         return "z2"
 
     @property
@@ -229,7 +250,7 @@ class EvolutionSettings:
 
 #: Keys added after version 0.1.0 and their defaults: left out of run-description fingerprints while they hold
 #: the default, so that run directories written by 0.1.0 still resume.
-NEW_DEFAULTS = {"splitting": "standard", "trotter_tol": 1e-3, "symmetry": "auto"}
+NEW_DEFAULTS = {"splitting": "standard", "trotter_tol": 1e-3, "symmetry": "auto", "gate_update": "svd"}
 
 
 #: The keys of the ``[evolution]`` table, in the order of :class:`EvolutionSettings`.

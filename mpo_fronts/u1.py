@@ -72,6 +72,9 @@ _PAIR_CHARGE = (LETTER_CHARGE[:, None] + LETTER_CHARGE[None, :]).reshape(16)
 _PAIRS = {c: np.flatnonzero(_PAIR_CHARGE == c) for c in range(-2, 3)}  # letter pairs a*4+b of pair charge c
 _GATE_LEAK_TOL = 1e-10  # largest charge-violating gate entry tolerated (then set to exactly zero)
 _CACHE_SIZE = 512  # index maps kept per engine (keyed by the charges of the bonds around a site or a gate)
+#: With gate_update = "qr": every QR_SVD_EVERY-th gate of a bond at chi is an SVD, which re-selects the sector
+#: sizes (scripts/bench/u1_qr_gate.py measured 12).
+QR_SVD_EVERY = 12
 
 
 def charge_gates(h_bonds: np.ndarray, tau: float) -> np.ndarray:
@@ -421,7 +424,7 @@ class ChargeTEBD(BrickworkEngine):
         self.t = 0.0
         self.blocks_done = 0
         self.max_step = 0.0
-        self._qr_every = 0  # EXPERIMENT, see _qr_gate: 0 = always the SVD (the engine's route)
+        self._qr_every = QR_SVD_EVERY if getattr(settings, "gate_update", "svd") == "qr" else 0  # see _qr_gate
         self._qr_count: dict[int, int] = {}
 
     # ------------------------------------------------------------------ bookkeeping
@@ -472,7 +475,8 @@ class ChargeTEBD(BrickworkEngine):
         """Everything needed to continue the evolution (numpy arrays and numbers only)."""
         return {"engine": "u1", "arrays": [A.copy() for A in self.arrays], "t": self.t, **self.ledger.state(),
                 "blocks_done": self.blocks_done, "center": self.center, "lo": self.lo, "hi": self.hi,
-                "max_step": self.max_step, "charges": [q.copy() for q in self.charges]}
+                "max_step": self.max_step, "charges": [q.copy() for q in self.charges],
+                "qr_count": np.array([self._qr_count.get(b, 0) for b in range(self.L - 1)], dtype=np.int64)}
 
     def load_state_dict(self, state: dict) -> None:
         """Restore a state saved by :meth:`state_dict` (same chain, operator and engine settings)."""
@@ -491,6 +495,8 @@ class ChargeTEBD(BrickworkEngine):
         self.center = int(state["center"])
         self.lo, self.hi = int(state["lo"]), int(state["hi"])
         self.max_step = float(state.get("max_step", 0.0))
+        counts = np.asarray(state.get("qr_count", np.zeros(0)), dtype=np.int64)
+        self._qr_count = {b: int(n) for b, n in enumerate(counts) if n}
 
     # ------------------------------------------------------------------ evolution
     def _build_gates(self, d: float) -> list:
@@ -638,12 +644,12 @@ class ChargeTEBD(BrickworkEngine):
 
 
     def _qr_gate(self, b, gm, post, mid, A2, B2, Dl, Dr, to_right) -> bool:
-        """EXPERIMENT (off unless ``_qr_every`` is set; scripts/bench/u1_qr_gate.py): truncate the gate's blocks
-        by one subspace iteration from the old bond basis and a QR instead of an SVD, keeping the sector sizes
-        of bond b (cf. J. Unfried, J. Hauschild, F. Pollmann, Phys. Rev. B 107, 155133 (2023), from memory).
-        Falls back (returns False) to the SVD when the bond is below chi or on every ``_qr_every``-th gate of
-        the bond, which re-selects the sector sizes. Not in checkpoints yet (the per-bond gate counts are not
-        saved), so a resumed run in this mode does not repeat the uninterrupted one; the driver never sets it."""
+        """gate_update = "qr" (``_qr_every`` > 0; scripts/bench/u1_qr_gate.py): truncate the gate's blocks by one
+        subspace iteration from the old bond basis and a QR instead of an SVD, keeping the sector sizes of bond
+        b (the QR-based update of J. Unfried, J. Hauschild, F. Pollmann, Phys. Rev. B 107, 155133 (2023), cited
+        from memory, here without its bond growth). Falls back (returns False) to the SVD when the bond is
+        below chi or on every ``_qr_every``-th gate of the bond, which re-selects the sector sizes. The per-bond
+        gate counts are part of the checkpoint state, so a resumed run repeats the uninterrupted one."""
         n = self._qr_count.get(b, 0)
         self._qr_count[b] = n + 1
         if self.charges[b].size < self.chi or n % self._qr_every == 0:
@@ -681,7 +687,7 @@ class ChargeTEBD(BrickworkEngine):
                 if cols.real0 is not None:
                     right = _from_real_cols(right, cols.real0)
             parts.append((v, ridx, cidx, left, right, i))
-        self.ledger.add(b, disc, "svd")
+        self.ledger.add(b, disc, "qr")
         k = self.charges[b].size
         newA = np.zeros((Dl * 4, k), dtype=complex)
         newB = np.zeros((k, 4 * Dr), dtype=complex)

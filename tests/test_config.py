@@ -55,7 +55,8 @@ def test_defaults_are_resolved():
     assert d["state"] == {"kind": "infinite_temperature"}
     assert d["evolution"] == {"chi": 64, "dt": 0.05, "order": 2, "cutoff": 0.0, "chunk": 20,
                               "truncation": "svd", "splitting": "standard",
-                              "trotter_tol": 1e-3, "symmetry": "auto"}  # the table [engine] is now [evolution]
+                              "trotter_tol": 1e-3, "symmetry": "auto",
+                              "gate_update": "svd"}  # the table [engine] is now [evolution]
     assert d["ensemble"] == {"realizations": 1, "seed": 0}
     assert d["run"]["checkpoints"] is True and d["run"]["checkpoint_interval"] > 0
     ising = parse_description({"model": {"kind": "mixed_field_ising", "L": 6}, "times": {"values": [1.0]}})
@@ -182,7 +183,7 @@ _NON_DEFAULT = {
     "state": {"kind": "random_product", "bits": "01010101", "samples": 2, "configurations": ["neel"]},
     "times": {"values": [0.25, 0.5], "start": 0.2, "stop": 3.0, "num": 5, "spacing": "linear"},
     "evolution": {"chi": 7, "dt": 0.02, "order": 4, "cutoff": 1e-9, "chunk": 3, "truncation": "rsvd",
-                  "splitting": "omelyan", "trotter_tol": 1e-4, "symmetry": "z2"},
+                  "splitting": "omelyan", "trotter_tol": 1e-4, "symmetry": "z2", "gate_update": "qr"},
     "ensemble": {"realizations": 3, "seed": 11},
     "run": {"label": "x", "checkpoints": False, "checkpoint_interval": 5.0, "claim_timeout": 60.0},
 }
@@ -202,6 +203,8 @@ def _minimal_with(table, key, value):
         d["ensemble"] = {"realizations": 2}
     if table == "state" and key == "samples":
         d["state"] = {"kind": "random_product"}
+    if table == "evolution" and key == "gate_update":
+        d["evolution"] = {"dt": "auto", "chi": 32}  # "qr" needs the U(1) engine, which dt = "auto" takes here
     if table == "ensemble" and key == "realizations":
         d["model"]["W"] = 1.0
         value = 2 if value is None else value  # required with disorder: compare with another count
@@ -352,3 +355,16 @@ def test_dt_auto_and_splittings_in_descriptions():
         with pytest.raises(ConfigError) as e:
             parse_description(base(**{f"engine__{key}": value}))
         assert e.value.key == f"engine.{key}" and needle in str(e.value), str(e.value)  # the table as given
+
+
+def test_gate_update_qr_needs_the_u1_engine_before_any_work():
+    # "qr" is an option of the U(1) engine: a description that would run the Z2 engine is refused, naming the key
+    ok = parse_description(base(engine__dt="auto", engine__chi=32, engine__gate_update="qr"))
+    assert ok.settings.gate_update == "qr"
+    for changes in ({"engine__dt": 0.1}, {"operators__w": "X", "engine__dt": "auto"},
+                    {"engine__dt": "auto", "engine__chi": 16}):
+        with pytest.raises(ConfigError, match="engine.gate_update") as info:
+            parse_description(base(engine__gate_update="qr", **changes))
+        assert "U(1) engine" in str(info.value)
+    with pytest.raises(ConfigError, match="engine.gate_update"):
+        parse_description(base(engine__gate_update="fast"))

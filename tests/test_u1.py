@@ -289,6 +289,14 @@ def test_u1_settings_errors_name_the_key():
         with pytest.raises(InputError, match=word) as info:
             EvolutionSettings(**kw)
         assert info.value.arg == "symmetry"
+    for kw, word in (({"gate_update": "QR"}, "\"svd\" or \"qr\""),
+                     ({"gate_update": "qr", "symmetry": "z2"}, "option of the U\\(1\\) engine")):
+        with pytest.raises(InputError, match=word) as info:
+            EvolutionSettings(**kw)
+        assert info.value.arg == "gate_update"
+    with pytest.raises(InputError, match="this run uses the Z2 engine") as info:  # numeric dt keeps Z2
+        mf.evolve_otoc(mf.xxz_chain(6, W=1.0, seed=1), "Z", 2, [0.5], chi=32, dt=0.1, gate_update="qr")
+    assert info.value.arg == "gate_update"
     from mpo_fronts.driver import evolve
 
     with pytest.raises(InputError, match="graded") as info:
@@ -309,12 +317,14 @@ def _u1_description(**evolution):
                               "run": {"checkpoint_interval": 1e-6}})
 
 
-def test_ensemble_checkpoint_resume_with_u1_repeats_the_uninterrupted_run(tmp_path):
-    # through the run directory (HDF5 checkpoints with complex tensors and bond charges), interrupted three times
+@pytest.mark.parametrize("gate_update", ["svd", "qr"])
+def test_ensemble_checkpoint_resume_with_u1_repeats_the_uninterrupted_run(tmp_path, gate_update):
+    # through the run directory (HDF5 checkpoints with complex tensors and bond charges), interrupted three times;
+    # with gate_update = "qr" the per-bond gate counts that decide SVD or QR are part of the checkpoint
     from mpo_fronts.ensemble import compute_realization, run_ensemble
     from mpo_fronts.store import RunDirectory
 
-    d = _u1_description()
+    d = _u1_description(gate_update=gate_update)
     run_ensemble(d, tmp_path / "ref", progress="none")
     rd = RunDirectory.create(tmp_path / "ck", d)
 
@@ -330,6 +340,7 @@ def test_ensemble_checkpoint_resume_with_u1_repeats_the_uninterrupted_run(tmp_pa
     for v in ("X", "Z"):
         assert np.array_equal(a.otoc(v), b.otoc(v))
     assert b.discarded_weight[0, -1] > 0  # chi = 8 truncates: the resume repeats the truncations too
+    assert (a.engine["splits"].get("qr", 0) > 0) == (gate_update == "qr")  # the QR path ran, or never
 
 
 def test_driver_resume_with_auto_symmetry_follows_the_checkpoint(monkeypatch):
