@@ -2,6 +2,7 @@
 instead of an SVD (``ChargeTEBD._qr_gate``, off by default).
 
 Usage:  nice -n 10 python scripts/bench/u1_qr_gate.py [--every 12] [--t 12] [--repeat 2] [--tmax 112]
+                                                       [--files NAME ...] [--name u1_qr_gate]
 
 About half of a U(1) step is gesdd on the charge blocks (scripts/bench/u1_profile.py). Once a bond is at chi,
 the experiment replaces the SVD of each block M_v by one subspace iteration from the block's old basis
@@ -16,7 +17,7 @@ the projection.
    dt = "auto" as the fast path picks it, to ``--tmax``: max |dC| over all sites, probes and times, discarded
    weight.
 
-Writes data/benchmarks/u1_qr_gate.json. A benchmark, not a test.
+Writes data/benchmarks/<name>.json (default u1_qr_gate). A benchmark, not a test.
 """
 
 from __future__ import annotations
@@ -59,6 +60,9 @@ def main() -> None:
     ap.add_argument("--t", type=float, default=12.0)
     ap.add_argument("--repeat", type=int, default=2)
     ap.add_argument("--tmax", type=float, default=112.0)
+    ap.add_argument("--files", nargs="+",
+                    default=["heisenberg_L14_W6_seed11_site0.npz", "heisenberg_L14_W6_seed11_center.npz"])
+    ap.add_argument("--name", default="u1_qr_gate")
     args = ap.parse_args()
     settings = mf.EvolutionSettings(chi=64, dt=0.1859, order=4, splitting="blanes_moan")
     chain = mf.xxz_chain(32, W=6.0, seed=1)
@@ -75,7 +79,7 @@ def main() -> None:
     d_modes = max(float(np.abs(last["svd"][0][v] - last["qr"][0][v]).max()) for v in ("X", "Z"))
     print(f"svd / qr CPU: {ratio:.3f}; max |dC| between modes at t = {args.t:g}: {d_modes:.2e}", flush=True)
     rows = []
-    for name in ("heisenberg_L14_W6_seed11_site0.npz", "heisenberg_L14_W6_seed11_center.npz"):
+    for name in args.files:
         ref = reference_from_arrays(np.load(ROOT / "data" / "references" / name))
         meta = ref["meta"]
         p = meta["model"]["params"]
@@ -92,7 +96,7 @@ def main() -> None:
                          "discarded": eng.discarded_weight, "cpu_s": c})
             print(f"accuracy {name} {mode}: max|dC| {err:.2e}, discarded {eng.discarded_weight:.3e}, "
                   f"{c:.0f} CPU s", flush=True)
-    write_json("u1_qr_gate", {"setting": {"every": args.every, "t": args.t, "chi": 64, "tmax": args.tmax},
+    write_json(args.name, {"setting": {"every": args.every, "t": args.t, "chi": 64, "tmax": args.tmax},
                               "speed_cpu_s": cpu, "speedup_qr_over_svd": ratio, "max_abs_dC_between_modes": d_modes,
                               "discarded_at_t": {m: last[m][1] for m in last}, "accuracy": rows,
                               "kept": "svd (the experiment is off by default)"})
