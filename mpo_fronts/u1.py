@@ -617,14 +617,22 @@ class ChargeTEBD(BrickworkEngine):
         for v in sorted(sizes):
             offs[v] = o
             o += sizes[v]
-        k = o
+        parts = []
+        for (v, ridx, cidx, u, s, vt), kp in zip(dec, counts):
+            if kp:
+                u, s, vt = u[:, :kp], s[:kp], vt[:kp]
+                parts.append((v, ridx, cidx, *((u, s[:, None] * vt) if to_right else (u * s, vt))))
+        self._place(b, rows, cols, parts, offs, labs, Dl, Dr, to_right)
+
+    def _place(self, b, rows, cols, parts, offs, labs, Dl, Dr, to_right) -> None:
+        """Write sites b, b + 1 from the factors of a gate: ``parts`` holds (v, rows, columns, left, right) for
+        v >= 0 (v = 0 in the real basis of :func:`_to_real`); sector v starts at ``offs[v]`` of the new bond
+        with charges ``labs``, and sector -v gets the conjugates (the Hermitian gauge)."""
+        k = labs.size
         newA = np.zeros((Dl * 4, k), dtype=complex)
         newB = np.zeros((k, 4 * Dr), dtype=complex)
-        for (v, ridx, cidx, u, s, vt), kp in zip(dec, counts):
-            if kp == 0:
-                continue
-            u, s, vt = u[:, :kp], s[:kp], vt[:kp]
-            left, right = (u, s[:, None] * vt) if to_right else (u * s, vt)
+        for v, ridx, cidx, left, right in parts:
+            kp = left.shape[1]
             if v == 0:
                 if rows.real0 is not None:
                     left = _from_real_rows(left, rows.real0)
@@ -641,7 +649,6 @@ class ChargeTEBD(BrickworkEngine):
         self.arrays[b + 1] = newB.reshape(k, 4, Dr)
         self.charges[b] = labs
         self.center = b + 1 if to_right else b
-
 
     def _qr_gate(self, b, gm, post, mid, A2, B2, Dl, Dr, to_right) -> bool:
         """gate_update = "qr" (``_qr_every`` > 0; scripts/bench/u1_qr_gate.py): truncate the gate's blocks by one
@@ -679,29 +686,11 @@ class ChargeTEBD(BrickworkEngine):
                     M, L0 = _to_real(M, rows.real0, cols.real0), _to_real(L0, rows.real0, None)
                 q, _ = _qr(M.conj().T @ L0)
                 left, right = M @ q, q.conj().T
-            kept = float(np.vdot(left, left).real if not to_right else np.vdot(right, right).real)
+            kept = float(np.vdot(right, right).real if to_right else np.vdot(left, left).real)
             disc += max(w - kept, 0.0) * (1 if v == 0 else 2)
-            if real:
-                if rows.real0 is not None:
-                    left = _from_real_rows(left, rows.real0)
-                if cols.real0 is not None:
-                    right = _from_real_cols(right, cols.real0)
-            parts.append((v, ridx, cidx, left, right, i))
+            parts.append((v, ridx, cidx, left, right))
         self.ledger.add(b, disc, "qr")
-        k = self.charges[b].size
-        newA = np.zeros((Dl * 4, k), dtype=complex)
-        newB = np.zeros((k, 4 * Dr), dtype=complex)
-        for v, ridx, cidx, left, right, i in parts:
-            kp = left.shape[1]
-            newA[ridx, i:i + kp] = left
-            newB[i:i + kp, cidx] = right
-            if v:
-                i2 = mid[-v][0]
-                newA[rows.pgroups[v], i2:i2 + kp] = left.conj()
-                newB[i2:i2 + kp, cols.pgroups[v]] = right.conj()
-        self.arrays[b] = newA.reshape(Dl, 4, k)
-        self.arrays[b + 1] = newB.reshape(k, 4, Dr)
-        self.center = b + 1 if to_right else b
+        self._place(b, rows, cols, parts, {v: i for v, (i, _) in mid.items()}, self.charges[b], Dl, Dr, to_right)
         return True
 
 
