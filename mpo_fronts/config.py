@@ -235,7 +235,7 @@ def _check_gate_update(evolution: dict, kind: str, w: str, prefix: str) -> None:
     try:
         EvolutionSettings(**evolution).engine_symmetry(chain, w)
     except InputError as exc:
-        raise ConfigError(f"{prefix}.gate_update", str(exc).replace("gate_update = 'qr' is", "'qr' is")) from None
+        raise ConfigError(f"{prefix}.gate_update", str(exc)) from None
 
 
 def _parse_operators(o: dict, L: int) -> dict:

@@ -31,18 +31,16 @@ def combine_evolution(base: dict, records: Sequence[dict]) -> dict:
     ``base`` (the description's settings) is updated; records may themselves be combined ones.
     """
     out = dict(base)
-    records = [dict(r) for r in records]
     if not records:
         return out
     for r in records:
         out.update({k: v for k, v in r.items() if k not in ("max_step", "dt_used", "dt_used_range", "splits",
                                                             "trotter_estimate", "symmetry_used", "engine")})
     out["max_step"] = max(float(r.get("max_step", 0.0)) for r in records)
-    lows = [r["dt_used_range"][0] if "dt_used_range" in r else r["dt_used"] for r in records if "dt_used" in r]
-    highs = [r["dt_used_range"][1] if "dt_used_range" in r else r["dt_used"] for r in records if "dt_used" in r]
-    if highs:
-        out["dt_used"] = max(highs)
-        out["dt_used_range"] = [min(lows), max(highs)]
+    ranges = [r.get("dt_used_range") or [r["dt_used"]] * 2 for r in records if "dt_used" in r]
+    if ranges:
+        out["dt_used"] = max(hi for _, hi in ranges)
+        out["dt_used_range"] = [min(lo for lo, _ in ranges), out["dt_used"]]
     if any("splits" in r for r in records):
         total: dict = {}
         for r in records:
