@@ -32,7 +32,7 @@ import numpy as np  # noqa: E402
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 import mpo_fronts as mf  # noqa: E402
 from common import write_json  # noqa: E402
-from mpo_fronts.cli import demo_folder  # noqa: E402
+from mpo_fronts.cli import _DEMO_CHIS as CHIS, _DEMO_TOL as TOL, demo_folder  # noqa: E402  (fronts demo's own)
 from mpo_fronts.config import parse_description  # noqa: E402
 from mpo_fronts.report import summarize  # noqa: E402
 from mpo_fronts.workflows import converge  # noqa: E402
@@ -43,7 +43,6 @@ VARIANTS = {
                   "evolution.order": 4, "evolution.splitting": "blanes_moan", "evolution.trotter_tol": 0.01},
 }
 THRESHOLDS = (0.05, 0.02, 0.01, 0.005, 0.002, 0.001)
-CHIS, TOL = (8, 16), 0.02  # as in fronts demo (mpo_fronts.cli._DEMO_CHIS, _DEMO_TOL)
 
 
 def _cpu() -> float:
