@@ -75,6 +75,9 @@ _CACHE_SIZE = 512  # index maps kept per engine (keyed by the charges of the bon
 #: With gate_update = "qr": every QR_SVD_EVERY-th gate of a bond at chi is an SVD, which re-selects the sector
 #: sizes (scripts/bench/u1_qr_gate.py measured 12).
 QR_SVD_EVERY = 12
+#: Subspace iterations of a QR gate (scripts/bench/u1_qr_gate.py measured 1, 2 and 3: the second one brings the
+#: truncation error near the SVD's, a third one adds cost and little accuracy).
+QR_ITERATIONS = 2
 
 
 def charge_gates(h_bonds: np.ndarray, tau: float) -> np.ndarray:
@@ -426,6 +429,7 @@ class ChargeTEBD(BrickworkEngine):
         self.max_step = 0.0
         self._qr_every = QR_SVD_EVERY if getattr(settings, "gate_update", "svd") == "qr" else 0  # see _qr_gate
         self._qr_count: dict[int, int] = {}
+        self._qr_iters = QR_ITERATIONS
 
     # ------------------------------------------------------------------ bookkeeping
     def norm2(self) -> float:
@@ -651,9 +655,9 @@ class ChargeTEBD(BrickworkEngine):
         self.center = b + 1 if to_right else b
 
     def _qr_gate(self, b, gm, post, mid, A2, B2, Dl, Dr, to_right) -> bool:
-        """gate_update = "qr" (``_qr_every`` > 0; scripts/bench/u1_qr_gate.py): truncate the gate's blocks by one
-        subspace iteration from the old bond basis and a QR instead of an SVD, keeping the sector sizes of bond
-        b (the QR-based update of J. Unfried, J. Hauschild, F. Pollmann, Phys. Rev. B 107, 155133 (2023), cited
+        """gate_update = "qr" (``_qr_every`` > 0; scripts/bench/u1_qr_gate.py): truncate the gate's blocks by
+        ``_qr_iters`` (:data:`QR_ITERATIONS`) subspace iterations started from the old bond basis, each
+        closed by a QR, instead of an SVD, keeping the sector sizes of bond b (the QR-based update of J. Unfried, J. Hauschild, F. Pollmann, Phys. Rev. B 107, 155133 (2023), cited
         from memory, here without its bond growth). Falls back (returns False) to the SVD when the bond is
         below chi or on every ``_qr_every``-th gate of the bond, which re-selects the sector sizes. The per-bond
         gate counts are part of the checkpoint state, so a resumed run repeats the uninterrupted one."""
@@ -679,12 +683,16 @@ class ChargeTEBD(BrickworkEngine):
                 if real:
                     M, R0 = _to_real(M, rows.real0, cols.real0), _to_real(R0, None, cols.real0)
                 q, _ = _qr(M @ R0.conj().T)
+                for _ in range(self._qr_iters - 1):
+                    q, _ = _qr(M @ (M.conj().T @ q))
                 left, right = q, q.conj().T @ M
             else:
                 L0 = A2[ridx, i:j]
                 if real:
                     M, L0 = _to_real(M, rows.real0, cols.real0), _to_real(L0, rows.real0, None)
                 q, _ = _qr(M.conj().T @ L0)
+                for _ in range(self._qr_iters - 1):
+                    q, _ = _qr(M.conj().T @ (M @ q))
                 left, right = M @ q, q.conj().T
             kept = float(np.vdot(right, right).real if to_right else np.vdot(left, left).real)
             disc += max(w - kept, 0.0) * (1 if v == 0 else 2)

@@ -1,14 +1,16 @@
 """Where the time of a U(1) step goes: cProfile of ChargeTEBD Trotter steps at a saturated bond dimension.
 
 Usage:  nice -n 10 python scripts/bench/u1_profile.py [--chi 64] [--L 32] [--W 6] [--t-pre 8] [--steps 2]
-                                                      [--dt 0.1859] [--top 25]
+                                                      [--dt 0.1859] [--top 25] [--gate-update svd]
+                                                      [--name u1_profile]
 
 Random-field Heisenberg chain (seed 1), W = Z at the centre. The engine first evolves to ``--t-pre`` (order 2,
 dt 0.1, not profiled) so that the bonds near W have reached chi; then one warm-up step and ``--steps``
 profiled steps of order 4 Blanes-Moan at ``--dt`` (the step dt = "auto" picks for this chain up to t = 1000,
-scripts/bench/long_times.py), applied layer by layer as BrickworkEngine.run does. Prints the functions by
+scripts/bench/long_times.py), applied layer by layer as BrickworkEngine.run does, with the gate update of
+``--gate-update`` (evolution.gate_update). Prints the functions by
 own time (tottime) and by cumulative time, and the share of the step spent in LAPACK SVD/QR, in the gate
-application (matmul) and in the rest. One BLAS thread; writes data/benchmarks/u1_profile.json. Shares of one
+application (matmul) and in the rest. One BLAS thread; writes data/benchmarks/<name>.json. Shares of one
 profile on a shared machine, not absolute times.
 """
 
@@ -42,11 +44,14 @@ def main(argv=None) -> None:
     ap.add_argument("--steps", type=int, default=2)
     ap.add_argument("--dt", type=float, default=0.1859)
     ap.add_argument("--top", type=int, default=25)
+    ap.add_argument("--gate-update", choices=("svd", "qr"), default="svd")
+    ap.add_argument("--name", default="u1_profile")
     args = ap.parse_args(argv)
     _blas = limit_blas(int(os.environ["OPENBLAS_NUM_THREADS"]))  # noqa: F841
 
     chain = mf.xxz_chain(args.L, W=args.W, seed=1)
-    eng = ChargeTEBD(chain, "Z", args.L // 2, chi=args.chi, dt=0.1, order=2)
+    eng = ChargeTEBD(chain, "Z", args.L // 2, chi=args.chi, dt=0.1, order=2,
+                     gate_update=args.gate_update)
     for _ in eng.run([args.t_pre]):
         pass
     dims = [A.shape[2] for A in eng.arrays[:-1]]
@@ -99,7 +104,7 @@ def main(argv=None) -> None:
     n_gates = next(r["calls"] for r in rows if r["function"].endswith("(_gate)"))
     n_svd = next(r["calls"] for r in rows if r["function"].endswith("(_svd)"))
     print(f"{n_gates} gates, {n_svd} SVDs ({n_svd / n_gates:.1f} sector blocks decomposed per gate)")
-    write_json("u1_profile", {"settings": vars(args), "bond_dims": dims, "layers_per_step": len(layers),
+    write_json(args.name, {"settings": vars(args), "bond_dims": dims, "layers_per_step": len(layers),
                               "groups_tottime_share": groups, "gates": n_gates, "svds": n_svd,
                               "total_profiled_s": total, "functions": rows[:60]})
 
