@@ -13,7 +13,9 @@ estimate is tested against dense exact evolution in tests/test_stepsize.py). The
 U(1) charge-block engine (``symmetry = "u1"``, :class:`mpo_fronts.u1.ChargeTEBD`), which ``symmetry = "auto"``
 picks with dt = "auto" on this chain (S^z-conserving, W = Z). The rows "dt = auto" run the step that
 dt = "auto" resolves to for ``--t-final`` (given as that number, since the timed run stops at ``--t-bench``),
-with the Z2 engine and with the U(1) engine; the headline ratio is the U(1) row's.
+with the Z2 engine and with the U(1) engine; the headline ratio is the U(1) row's. A last row runs the U(1)
+engine with the opt-in QR gate (``gate_update = "qr"``) at ``QR_CHI``, the chi at which its truncation error was
+measured no larger than the SVD's at chi = 64; its ratio is reported separately.
 
 Timing: each configuration evolves from t = 0 to ``--t-bench`` on one BLAS thread, the old commit in a
 subprocess importing a temporary git worktree of f35581a, this tree in a subprocess too (same conditions).
@@ -46,6 +48,10 @@ sys.path.insert(0, str(ROOT))
 
 OLD = "f35581a"
 L, W, SEED, CHI = 32, 6.0, 1, 64
+# The QR gate's chi at matched truncation accuracy: the smallest chi whose max |dC| against both L = 14 W = 6
+# references (W at site 0 and at the centre, t <= 112) is at most the SVD's at CHI, measured by
+# scripts/bench/u1_qr_gate.py --name u1_qr_gate_iters2 (chi 64 was not: 2.19e-3 against 1.97e-3 at the centre).
+QR_CHI = 68
 
 RUNNER = r"""
 import json, sys, time
@@ -60,6 +66,8 @@ if {splitting!r} != "standard":
     kw["splitting"] = {splitting!r}
 if {symmetry!r} is not None:  # the old commit has no symmetry setting
     kw["symmetry"] = {symmetry!r}
+if {gate_update!r} is not None:  # nor a gate_update setting
+    kw["gate_update"] = {gate_update!r}
 t0 = time.process_time()
 res = mf.evolve_otoc(chain, "Z", {L} // 2, times, chi={chi}, dt={dt}, **kw)
 cpu = time.process_time() - t0
@@ -70,9 +78,10 @@ print(json.dumps({{"cpu": cpu, "max_step": float(res.meta.get("max_step", {dt}))
 """
 
 
-def run_one(path: Path, order: int, splitting: str, dt: float, t_bench: float, symmetry: str | None = None) -> dict:
+def run_one(path: Path, order: int, splitting: str, dt: float, t_bench: float, symmetry: str | None = None,
+            chi: int = CHI, gate_update: str | None = None) -> dict:
     code = RUNNER.format(path=str(path), L=L, W=W, seed=SEED, t_bench=t_bench, order=order, splitting=splitting,
-                         chi=CHI, dt=dt, symmetry=symmetry)
+                         chi=chi, dt=dt, symmetry=symmetry, gate_update=gate_update)
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
                          cwd=tempfile.gettempdir())
     res = json.loads(out.stdout.strip().splitlines()[-1])
@@ -89,7 +98,7 @@ def main() -> None:
     args = ap.parse_args()
 
     import mpo_fronts as mf
-    from common import machine, write_json  # noqa: E402
+    from common import write_json  # noqa: E402
     from mpo_fronts.schedules import layers_per_step
     from mpo_fronts.stepsize import auto_dt
 
@@ -108,8 +117,9 @@ def main() -> None:
                    capture_output=True)
     rows = []
     try:
-        # (label, tree, order, splitting, step actually run, symmetry): the slow matched steps are timed at a
-        # longer step and scaled by the number of steps (see the module doc); symmetry None: the old commit
+        # (label, tree, order, splitting, step actually run, symmetry[, chi, gate_update]): the slow matched
+        # steps are timed at a longer step and scaled by the number of steps (see the module doc); symmetry
+        # None: the old commit. The last row is the opt-in QR gate at QR_CHI (see QR_CHI for why that chi).
         bm = matched[(4, "blanes_moan")][0]
         configs = [("f35581a, order 2 (Strang)", old_tree, 2, "standard", 0.05, None),
                    ("f35581a, order 4 (Suzuki)", old_tree, 4, "standard", 0.1, None),
@@ -117,12 +127,16 @@ def main() -> None:
                    ("this tree, order 4 (Blanes-Moan), dt = auto, Z2 engine", ROOT, 4, "blanes_moan", bm, "z2"),
                    ("this tree, order 4 (Blanes-Moan), half step, Z2 engine", ROOT, 4, "blanes_moan", 0.5 * bm,
                     "z2"),
-                   ("this tree, order 4 (Blanes-Moan), dt = auto, U(1) engine", ROOT, 4, "blanes_moan", bm, "u1")]
-        for label, tree, order, splitting, dt_run, symmetry in configs:
+                   ("this tree, order 4 (Blanes-Moan), dt = auto, U(1) engine", ROOT, 4, "blanes_moan", bm, "u1"),
+                   (f"this tree, order 4 (Blanes-Moan), dt = auto, U(1) engine, gate_update = qr, chi {QR_CHI}",
+                    ROOT, 4, "blanes_moan", bm, "u1", QR_CHI, "qr")]
+        for label, tree, order, splitting, dt_run, symmetry, *rest in configs:
+            chi, gate_update = rest if rest else (CHI, None)
             t0 = time.perf_counter()
-            r = run_one(tree, order, splitting, dt_run, args.t_bench, symmetry)
+            r = run_one(tree, order, splitting, dt_run, args.t_bench, symmetry, chi, gate_update)
             dt_m = matched[(order, splitting)][0]
-            r.update(label=label, order=order, splitting=splitting, dt_run=dt_run, dt_matched=dt_m,
+            r.update(label=label, order=order, splitting=splitting, dt_run=dt_run, dt_matched=dt_m, chi=chi,
+                     gate_update=gate_update or "svd",
                      predicted_error_at_dt_run=matched[(order, splitting)][1]["A"] * dt_run ** order * args.t_final,
                      cpu_per_unit_time_matched=r["cpu_per_step"] / dt_m, wall=time.perf_counter() - t0)
             r["sim_time_per_cpu_s_matched"] = 1.0 / r["cpu_per_unit_time_matched"]
@@ -146,7 +160,14 @@ def main() -> None:
           f"best option of f35581a with the U(1) engine ({ratio_z2:.2f}x with the Z2 engine; U(1) / Z2 "
           f"{u1_vs_z2:.2f}x, C_Z of the two differing by {u1_z2_cz:.1e} at t = {args.t_bench:g}, truncation); old "
           f"and new order-2 runs agree to {agree:.1e} in C_Z at t = {args.t_bench:g}")
+    qr = next(r for r in rows if "gate_update = qr" in r["label"])
+    ratio_qr = qr["sim_time_per_cpu_s_matched"] / best_old
+    print(f"opt-in gate_update = 'qr' at chi {QR_CHI} (truncation error at most the SVD's at chi {CHI} on the L = 14 "
+          f"references, data/benchmarks/u1_qr_gate_iters2.json): {ratio_qr:.2f}x over f35581a, "
+          f"{qr['sim_time_per_cpu_s_matched'] / new['sim_time_per_cpu_s_matched']:.2f}x over the SVD row; "
+          f"discarded at t = {args.t_bench:g}: {qr['discarded']:.2e} against {new['discarded']:.2e}")
     hours = args.t_final / new["sim_time_per_cpu_s_matched"] / 3600
+    hours_qr = args.t_final / qr["sim_time_per_cpu_s_matched"] / 3600
     print(f"expected cost of t = {args.t_final:g} per realization with dt = auto (U(1)): {hours:.2f} CPU hours "
           f"(chi = {CHI}, bond dimension reached by t = {args.t_bench:g}: {new['max_bond']})")
     write_json("long_times", {
@@ -157,11 +178,13 @@ def main() -> None:
                           matched.items()},
         "rows": [{k: v for k, v in r.items() if k != "C_Z"} for r in rows],
         "ratio_matched": ratio, "ratio_matched_z2_engine": ratio_z2, "u1_over_z2_at_dt_auto": u1_vs_z2,
+        "ratio_matched_qr": ratio_qr, "qr_chi": QR_CHI, "hours_to_t_final_qr": hours_qr,
         "u1_z2_max_abs_dCZ_at_t_bench": u1_z2_cz, "auto_symmetry": auto_symmetry,
         "note": ("ratio_matched: the dt = auto U(1) row over the best f35581a row (simulated time per CPU second at "
-                 "matched Trotter accuracy); all rows measured one after another in this command"),
-        "old_new_agreement_CZ": agree, "hours_to_t_final": hours,
-        "machine": machine()})
+                 "matched Trotter accuracy); ratio_matched_qr: the same for the opt-in QR gate at chi qr_chi, whose "
+                 "truncation error was measured at most the SVD's at chi 64 (data/benchmarks/u1_qr_gate_iters2.json);"
+                 " all rows measured one after another in this command"),
+        "old_new_agreement_CZ": agree, "hours_to_t_final": hours})
 
 
 if __name__ == "__main__":

@@ -49,33 +49,35 @@ def _reference(path: Path, tmax: float):
     return ref, keep, times[keep]
 
 
-def one(path: Path, tmax: float, chi: int, symmetry: str) -> dict:
+def one(path: Path, tmax: float, chi: int, symmetry: str, gate_update: str = "svd") -> dict:
     ref, keep, times = _reference(path, tmax)
     meta = ref["meta"]
     p, L = meta["model"]["params"], int(meta["model"]["L"])
     chain = mf.xxz_chain(L, J=p["J"], delta=p["delta"], fields=ref["fields"])
     c0 = time.process_time()
-    res = mf.evolve_otoc(chain, meta["w"], int(meta["site"]), times, chi=chi, dt="auto", symmetry=symmetry)
+    res = mf.evolve_otoc(chain, meta["w"], int(meta["site"]), times, chi=chi, dt="auto", symmetry=symmetry,
+                         gate_update=gate_update)
     cpu = time.process_time() - c0
     return compare(path, ref, keep, times, res.otoc, res.meta, res.discarded_weight[-1], res.max_bond.max(),
                    chi, symmetry, cpu)
 
 
-def write_run(folder: Path, path: Path, tmax: float, chi: int) -> Path:
+def write_run(folder: Path, path: Path, tmax: float, chi: int, gate_update: str = "svd") -> Path:
     """DIR/description.toml: the reference's chain and times as a one-realization production run."""
     ref, _, times = _reference(path, tmax)
     meta = ref["meta"]
     p = meta["model"]["params"]
     fields = ", ".join(repr(float(h)) for h in np.asarray(ref["fields"], dtype=float))
     text = "\n".join([
-        f"# u1_accuracy.py --write-run: {path.name} up to t = {float(times[-1]):g} at chi = {chi}",
+        f"# u1_accuracy.py --write-run: {path.name} up to t = {float(times[-1]):g} at chi = {chi}, "
+        f"gate_update = {gate_update}",
         "[model]", 'kind = "xxz"', f"L = {int(meta['model']['L'])}", f"J = {float(p['J'])!r}",
         f"delta = {float(p['delta'])!r}", f"fields = [{fields}]",
         "[operators]", f'w = "{meta["w"]}"', f"site = {int(meta['site'])}", 'v = ["X", "Z"]',
         "[times]", "values = [" + ", ".join(repr(float(t)) for t in times) + "]",
-        "[evolution]", f"chi = {chi}", 'dt = "auto"',
+        "[evolution]", f"chi = {chi}", 'dt = "auto"', f'gate_update = "{gate_update}"',
         "[ensemble]", "realizations = 1", "seed = 1",
-        "[run]", f'label = "u1_accuracy {path.stem} chi {chi}"', "checkpoints = true",
+        "[run]", f'label = "u1_accuracy {path.stem} chi {chi} {gate_update}"', "checkpoints = true",
         "checkpoint_interval = 300.0", ""])
     folder.mkdir(parents=True, exist_ok=True)
     out = folder / "description.toml"
@@ -118,6 +120,7 @@ def compare(path, ref, keep, times, otoc, meta, discarded, max_bond, chi, symmet
                                    if m.any() else {"n": 0})
     return {"file": path.name, "L": L, "site": int(ref["meta"]["site"]), "chi": chi, "tmax": float(times[-1]),
             "symmetry": symmetry, "symmetry_used": meta["symmetry_used"], "dt_used": meta["dt_used"],
+            "gate_update": meta.get("gate_update", "svd"),
             "order": meta["order"], "splitting": meta["splitting"],
             "max|dC|": float(per_t.max()), "max|dC| per probe": per_probe, "relative_error": relative,
             "times": times.tolist(), "max|dC| per time": per_t.tolist(),
@@ -132,6 +135,8 @@ def main(argv=None) -> None:
     ap.add_argument("--files", nargs="+", default=list(FILES))
     ap.add_argument("--z2", action="store_true", help="also run symmetry = 'z2' at the same settings")
     ap.add_argument("--name", default="u1_accuracy")
+    ap.add_argument("--gate-update", choices=("svd", "qr"), default="svd",
+                    help="the U(1) engine's truncation of a gate (evolution.gate_update)")
     ap.add_argument("--write-run", type=Path, default=None, metavar="DIR",
                     help="write DIR/description.toml for the first of --files (a resumable fronts run) and stop")
     ap.add_argument("--from-run", type=Path, default=None, metavar="DIR",
@@ -139,7 +144,8 @@ def main(argv=None) -> None:
     args = ap.parse_args(argv)
     _blas = limit_blas(int(os.environ["OPENBLAS_NUM_THREADS"]))  # noqa: F841
     if args.write_run is not None:
-        desc = write_run(args.write_run, ROOT / "data" / "references" / args.files[0], args.tmax, args.chi)
+        desc = write_run(args.write_run, ROOT / "data" / "references" / args.files[0], args.tmax, args.chi,
+                        args.gate_update)
         print(f"wrote {desc}; run (again, to resume): OPENBLAS_NUM_THREADS=1 fronts run {desc} --out "
               f"{args.write_run / 'run'}")
         return
@@ -151,7 +157,7 @@ def main(argv=None) -> None:
             r = from_run(args.from_run)
             name = r["file"]
         else:
-            r = one(ROOT / "data" / "references" / name, args.tmax, args.chi, symmetry)
+            r = one(ROOT / "data" / "references" / name, args.tmax, args.chi, symmetry, args.gate_update)
         rows.append(r)
         print(f"{name} symmetry {symmetry} ({r['symmetry_used']}), chi {r['chi']}, dt = auto -> {r['dt_used']:.4g} "
               f"(order {r['order']} {r['splitting']}): max|dC| up to t = {r['tmax']:g}: {r['max|dC|']:.2e} "
