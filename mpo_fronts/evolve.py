@@ -315,7 +315,7 @@ class OperatorTEBD(BrickworkEngine):
                 self.labels[c] = lab
             else:
                 q, r = np.linalg.qr(m)
-            arrays[c] = q.reshape(Dl, 4, -1)
+            arrays[c] = np.ascontiguousarray(q.reshape(Dl, 4, -1))
             arrays[c + 1] = np.tensordot(r, arrays[c + 1], axes=(1, 0))
             c += 1
         while c > target:
@@ -327,7 +327,7 @@ class OperatorTEBD(BrickworkEngine):
                 self.labels[c - 1] = lab
             else:
                 q, r = np.linalg.qr(m)
-            arrays[c] = q.T.reshape(-1, 4, Dr)
+            arrays[c] = np.ascontiguousarray(q.T.reshape(-1, 4, Dr))
             arrays[c - 1] = np.tensordot(arrays[c - 1], r.T, axes=(2, 0))
             c -= 1
         self.center = c
@@ -343,8 +343,10 @@ class OperatorTEBD(BrickworkEngine):
         k = left.shape[1]
         if lab is not None:
             self.labels[b] = lab
-        self.arrays[b] = left.reshape(Dl, 4, k)
-        self.arrays[b + 1] = right.reshape(k, 4, Dr)
+        # C-contiguous like a restored checkpoint's arrays: BLAS's last bits depend on the memory layout,
+        # and a resumed run must repeat the uninterrupted one bit for bit (tests/test_evolve.py)
+        self.arrays[b] = np.ascontiguousarray(left.reshape(Dl, 4, k))
+        self.arrays[b + 1] = np.ascontiguousarray(right.reshape(k, 4, Dr))
         self.center = b + 1 if to_right else b
 
 
