@@ -102,7 +102,8 @@ class EvolutionSettings:
         :data:`mpo_fronts.u1.QR_SVD_EVERY`-th gate of the bond to re-select them. Measured
         (scripts/bench/u1_qr_gate.py --name u1_qr_gate_iters2, README "Performance"): at chi = 68 no larger
         error than the SVD at chi = 64 on the two L = 14 references, 1.7x-1.8x faster; at equal chi slightly
-        more error (2.19e-3 against 1.97e-3 at the centre), so raise chi by about 6 % when switching. Only with the U(1) engine: anything else raises an InputError naming ``gate_update``.
+        more error (2.19e-3 against 1.97e-3 at the centre), so raise chi by about 6 % when switching. Only
+        with the U(1) engine: anything else raises an InputError naming ``gate_update``.
 
     Examples
     --------

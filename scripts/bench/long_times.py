@@ -78,8 +78,8 @@ print(json.dumps({{"cpu": cpu, "max_step": float(res.meta.get("max_step", {dt}))
 """
 
 
-def run_one(path: Path, order: int, splitting: str, dt: float, t_bench: float, symmetry: str | None = None,
-            chi: int = CHI, gate_update: str | None = None) -> dict:
+def run_one(path: Path, order: int, splitting: str, dt: float, t_bench: float, symmetry: str | None,
+            chi: int, gate_update: str | None) -> dict:
     code = RUNNER.format(path=str(path), L=L, W=W, seed=SEED, t_bench=t_bench, order=order, splitting=splitting,
                          chi=chi, dt=dt, symmetry=symmetry, gate_update=gate_update)
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
@@ -117,21 +117,22 @@ def main() -> None:
                    capture_output=True)
     rows = []
     try:
-        # (label, tree, order, splitting, step actually run, symmetry[, chi, gate_update]): the slow matched
-        # steps are timed at a longer step and scaled by the number of steps (see the module doc); symmetry
-        # None: the old commit. The last row is the opt-in QR gate at QR_CHI (see QR_CHI for why that chi).
+        # (label, tree, order, splitting, step actually run, symmetry, chi, gate_update): the slow matched
+        # steps are timed at a longer step and scaled by the number of steps (see the module doc); symmetry and
+        # gate_update None: the old commit's (no such settings). The last row is the opt-in QR gate at QR_CHI.
         bm = matched[(4, "blanes_moan")][0]
-        configs = [("f35581a, order 2 (Strang)", old_tree, 2, "standard", 0.05, None),
-                   ("f35581a, order 4 (Suzuki)", old_tree, 4, "standard", 0.1, None),
-                   ("this tree, order 2 (Strang)", ROOT, 2, "standard", 0.05, "z2"),
-                   ("this tree, order 4 (Blanes-Moan), dt = auto, Z2 engine", ROOT, 4, "blanes_moan", bm, "z2"),
+        configs = [("f35581a, order 2 (Strang)", old_tree, 2, "standard", 0.05, None, CHI, None),
+                   ("f35581a, order 4 (Suzuki)", old_tree, 4, "standard", 0.1, None, CHI, None),
+                   ("this tree, order 2 (Strang)", ROOT, 2, "standard", 0.05, "z2", CHI, None),
+                   ("this tree, order 4 (Blanes-Moan), dt = auto, Z2 engine", ROOT, 4, "blanes_moan", bm, "z2",
+                    CHI, None),
                    ("this tree, order 4 (Blanes-Moan), half step, Z2 engine", ROOT, 4, "blanes_moan", 0.5 * bm,
-                    "z2"),
-                   ("this tree, order 4 (Blanes-Moan), dt = auto, U(1) engine", ROOT, 4, "blanes_moan", bm, "u1"),
+                    "z2", CHI, None),
+                   ("this tree, order 4 (Blanes-Moan), dt = auto, U(1) engine", ROOT, 4, "blanes_moan", bm, "u1",
+                    CHI, None),
                    (f"this tree, order 4 (Blanes-Moan), dt = auto, U(1) engine, gate_update = qr, chi {QR_CHI}",
                     ROOT, 4, "blanes_moan", bm, "u1", QR_CHI, "qr")]
-        for label, tree, order, splitting, dt_run, symmetry, *rest in configs:
-            chi, gate_update = rest if rest else (CHI, None)
+        for label, tree, order, splitting, dt_run, symmetry, chi, gate_update in configs:
             t0 = time.perf_counter()
             r = run_one(tree, order, splitting, dt_run, args.t_bench, symmetry, chi, gate_update)
             dt_m = matched[(order, splitting)][0]
